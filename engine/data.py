@@ -1,0 +1,258 @@
+"""Data columns: typed values, CSV files, validation and checksums.
+
+A `DataSet` is an immutable set of named numeric columns. Columns loaded from one
+CSV file form a table; the file's SHA-256 is kept so that a session replayed on
+another machine can tell whether it reads the same data.
+"""
+
+from __future__ import annotations
+
+import csv
+import hashlib
+import io
+import math
+import os
+from dataclasses import dataclass, field, replace
+
+import numpy as np
+
+from .errors import DataError, FormulaError
+from .expr import check_name
+
+#: Values beyond this magnitude are refused: their squares overflow float64.
+MAX_VALUE = 1e100
+#: Largest CSV file read, in bytes.
+MAX_FILE_BYTES = 512 * 1024 * 1024
+
+
+@dataclass(frozen=True)
+class Column:
+    """One named column of numbers.
+
+    Attributes
+    ----------
+    name : str
+    values : ndarray, shape (rows,)
+        Read-only float64 values.
+    table : str or None
+        The table (CSV file) the column belongs to, if loaded from one.
+    """
+
+    name: str
+    values: np.ndarray
+    table: str | None = None
+
+    @property
+    def rows(self) -> int:
+        return int(self.values.shape[0])
+
+
+@dataclass(frozen=True)
+class FileRecord:
+    """A data file read into the session, with the SHA-256 of its bytes."""
+
+    path: str
+    sha256: str
+    rows: int
+    columns: tuple[str, ...]
+    role: str = "load"  # "load" or "append"
+
+
+@dataclass(frozen=True)
+class Table:
+    """Columns read from one CSV file, named ``prefix`` + header name."""
+
+    name: str
+    prefix: str
+    header: tuple[str, ...]
+
+
+@dataclass(frozen=True)
+class DataSet:
+    """Named columns, the tables they came from and the files read."""
+
+    columns: tuple[Column, ...] = ()
+    tables: tuple[Table, ...] = ()
+    files: tuple[FileRecord, ...] = field(default=())
+
+    # -- queries ---------------------------------------------------------
+    @property
+    def names(self) -> tuple[str, ...]:
+        return tuple(c.name for c in self.columns)
+
+    def __contains__(self, name: str) -> bool:
+        return any(c.name == name for c in self.columns)
+
+    def get(self, name: str) -> Column:
+        for c in self.columns:
+            if c.name == name:
+                return c
+        raise DataError(f"no data column `{name}`")
+
+    def values(self, name: str) -> np.ndarray:
+        return self.get(name).values
+
+    # -- changes (each returns a new DataSet) ------------------------------
+    def with_column(self, column: Column) -> tuple["DataSet", bool]:
+        """Add or replace a column; also says whether it replaced one."""
+        cols = list(self.columns)
+        for i, c in enumerate(cols):
+            if c.name == column.name:
+                cols[i] = column
+                return replace(self, columns=tuple(cols)), True
+        cols.append(column)
+        return replace(self, columns=tuple(cols)), False
+
+    def append(self, name: str, values: np.ndarray) -> "DataSet":
+        """Add rows at the end of column `name`."""
+        col = self.get(name)
+        new = _frozen(np.concatenate([col.values, values]))
+        return self.with_column(replace(col, values=new))[0]
+
+    def load_table(self, table: Table, columns: dict[str, np.ndarray],
+                   record: FileRecord) -> "DataSet":
+        """Add the columns of a freshly read table (replacing same-named ones)."""
+        ds = self
+        for name, vals in columns.items():
+            ds, _ = ds.with_column(Column(table.prefix + name, _frozen(vals), table.name))
+        tables = tuple(t for t in ds.tables if t.name != table.name) + (table,)
+        return replace(ds, tables=tables, files=ds.files + (record,))
+
+    def append_table(self, table: Table, columns: dict[str, np.ndarray],
+                     record: FileRecord) -> "DataSet":
+        ds = self
+        for name, vals in columns.items():
+            ds = ds.append(table.prefix + name, vals)
+        return replace(ds, files=ds.files + (record,))
+
+    def table_for_header(self, header: tuple[str, ...], prefix: str | None) -> Table | None:
+        for t in reversed(self.tables):
+            if t.header == header and (prefix is None or t.prefix == prefix):
+                return t
+        return None
+
+
+def _frozen(a: np.ndarray) -> np.ndarray:
+    a = np.array(a, dtype=np.float64)
+    a.setflags(write=False)
+    return a
+
+
+def check_value(v: float, where: str) -> float:
+    """Refuse NaN, infinities and values too large for float64 arithmetic."""
+    if not math.isfinite(v):
+        raise DataError(f"{where}: `{v}` is not a finite number")
+    if abs(v) > MAX_VALUE:
+        raise DataError(f"{where}: `{v:g}` is too large (beyond {MAX_VALUE:g})")
+    return v
+
+
+def parse_number(text: str, where: str) -> float:
+    """One cell or typed value to a float, with an error naming `where`."""
+    t = text.strip()
+    if not t:
+        raise DataError(f"{where}: missing value")
+    low = t.lower().lstrip("+-")
+    if low in ("nan", "inf", "infinity"):
+        raise DataError(f"{where}: `{t}` is not a finite number")
+    try:
+        v = float(t)
+    except ValueError:
+        shown = t if len(t) <= 30 else t[:27] + "..."
+        raise DataError(f"{where}: `{shown}` is not a number") from None
+    if not math.isfinite(v):
+        raise DataError(f"{where}: `{t}` is out of range")
+    return check_value(v, where)
+
+
+def typed_column(name: str, texts: list[str]) -> np.ndarray:
+    """Values typed as ``data NAME = v1, v2, ...``."""
+    vals = [parse_number(t, f"data `{name}` value {i + 1}") for i, t in enumerate(texts)]
+    if not vals:
+        raise DataError(f"data `{name}` has no values")
+    return _frozen(np.array(vals))
+
+
+def sha256_of(path: str) -> str:
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for chunk in iter(lambda: fh.read(1 << 20), b""):
+            h.update(chunk)
+    return h.hexdigest()
+
+
+@dataclass(frozen=True)
+class CsvTable:
+    """A CSV file as read: header, numeric columns, rows and checksum."""
+
+    path: str
+    header: tuple[str, ...]
+    columns: dict[str, np.ndarray]
+    rows: int
+    sha256: str
+
+
+def read_csv(path: str) -> CsvTable:
+    """Read a CSV file with a header row and numeric cells.
+
+    A UTF-8 byte-order mark and Windows line ends are accepted. Every other
+    problem is a `DataError` naming the file, and the row (1-based, the header
+    being row 1) and column where it is.
+    """
+    name = os.path.basename(path)
+    try:
+        size = os.path.getsize(path)
+        if size > MAX_FILE_BYTES:
+            raise DataError(f"file `{name}` is {size:,} bytes; the limit is {MAX_FILE_BYTES:,}")
+        with open(path, "rb") as fh:
+            raw = fh.read()
+    except FileNotFoundError:
+        raise DataError(f"file `{path}` does not exist") from None
+    except IsADirectoryError:
+        raise DataError(f"`{path}` is a folder, not a file") from None
+    except PermissionError:
+        raise DataError(f"file `{path}` cannot be read (permission denied)") from None
+    except OSError as exc:
+        raise DataError(f"file `{path}` cannot be read ({exc.strerror or exc})") from None
+    digest = hashlib.sha256(raw).hexdigest()
+    try:
+        text = raw.decode("utf-8-sig")
+    except UnicodeDecodeError as exc:
+        line = raw[: exc.start].count(b"\n") + 1
+        raise DataError(f"file `{name}` row {line}: not UTF-8 text") from None
+    if "\x00" in text:
+        raise DataError(f"file `{name}` holds NUL bytes; it is not a CSV text file")
+    if not text.strip():
+        raise DataError(f"file `{name}` is empty")
+    try:
+        rows = list(csv.reader(io.StringIO(text, newline="")))
+    except csv.Error as exc:
+        raise DataError(f"file `{name}`: cannot read as CSV ({exc})") from None
+    # skip blank lines (a trailing newline, a blank line at the end)
+    numbered = [(i + 1, r) for i, r in enumerate(rows) if any(c.strip() for c in r)]
+    if not numbered:
+        raise DataError(f"file `{name}` is empty")
+    hrow, header = numbered[0]
+    header = [h.strip() for h in header]
+    for j, h in enumerate(header):
+        if not h:
+            raise DataError(f"file `{name}` row {hrow}, column {j + 1}: empty column name")
+        try:
+            check_name(h, "column name")
+        except FormulaError as exc:
+            raise DataError(f"file `{name}` row {hrow}, column {j + 1}: {exc}") from None
+    dup = {h for h in header if header.count(h) > 1}
+    if dup:
+        raise DataError(f"file `{name}` row {hrow}: column `{sorted(dup)[0]}` appears twice")
+    body = numbered[1:]
+    if not body:
+        raise DataError(f"file `{name}` has a header but no rows of data")
+    values = np.empty((len(body), len(header)))
+    for k, (lineno, cells) in enumerate(body):
+        if len(cells) != len(header):
+            raise DataError(f"file `{name}` row {lineno}: {len(cells)} cells where the header "
+                            f"has {len(header)}")
+        for j, cell in enumerate(cells):
+            values[k, j] = parse_number(cell, f"file `{name}` row {lineno}, column `{header[j]}`")
+    cols = {h: _frozen(values[:, j]) for j, h in enumerate(header)}
+    return CsvTable(path, tuple(header), cols, len(body), digest)

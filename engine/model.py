@@ -1,0 +1,946 @@
+"""Parameters, priors, likelihood terms and derived quantities; compilation.
+
+A `Model` is an immutable description: each change returns a new one, so that
+undo, what-if layers and model keeps are plain values. `compile_model` turns a
+model and its data into a `Compiled` log-density that is vectorised over grid
+points (numpy), built once with sympy's ``lambdify`` and common-subexpression
+elimination. Data stay separate from parameters in the compiled form: sums over
+rows are reduced to sufficient statistics where the algebra allows it, and are
+otherwise evaluated with the rows as a vectorised axis in bounded chunks.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field, replace
+from typing import Callable, Sequence
+
+import numpy as np
+import sympy as sp
+
+from . import families as fam
+from . import special as S
+from .data import DataSet
+from .errors import DataError, FormulaError, ModelError
+from .expr import check_name
+
+#: Largest number of values a discrete parameter may take.
+MAX_DISCRETE_VALUES = 1_000_000
+#: Budget, in float64 cells, for one chunk of (grid points x data rows).
+ROW_CHUNK_CELLS = 1 << 21
+
+KINDS = ("real", "positive", "unit", "interval", "int", "set")
+
+
+# ---------------------------------------------------------------------------
+# declarations
+
+@dataclass(frozen=True)
+class Param:
+    """A parameter and its domain.
+
+    Attributes
+    ----------
+    name : str
+    kind : str
+        One of `KINDS`.
+    lo, hi : float
+        Domain bounds (``-inf`` / ``inf`` where unbounded).
+    values : tuple of float or None
+        The values of a discrete parameter (``int`` and ``set``).
+    points : int or None
+        The number of grid points asked for, if any.
+    """
+
+    name: str
+    kind: str
+    lo: float = -math.inf
+    hi: float = math.inf
+    values: tuple[float, ...] | None = None
+    points: int | None = None
+
+    @property
+    def discrete(self) -> bool:
+        return self.kind in ("int", "set")
+
+    @property
+    def bounded(self) -> bool:
+        return math.isfinite(self.lo) and math.isfinite(self.hi)
+
+    @property
+    def symbol(self) -> sp.Symbol:
+        return sp.Symbol(self.name, real=True)
+
+    def describe(self) -> str:
+        if self.kind == "real":
+            dom = "real"
+        elif self.kind == "positive":
+            dom = "positive"
+        elif self.kind == "unit":
+            dom = "unit (0 to 1)"
+        elif self.kind == "interval":
+            dom = f"in {_g(self.lo)} {_g(self.hi)}"
+        elif self.kind == "int":
+            dom = f"int {_g(self.lo)} {_g(self.hi)}"
+        else:
+            dom = "set " + " ".join(_g(v) for v in self.values or ())
+        if self.points:
+            dom += f" points {self.points}"
+        return dom
+
+    def log_uniform(self) -> float | None:
+        """Log density of the uniform prior on the domain, or None if unbounded."""
+        if self.discrete:
+            return -math.log(len(self.values or ()))
+        if not self.bounded:
+            return None
+        return -math.log(self.hi - self.lo)
+
+
+def _g(v: float) -> str:
+    return f"{v:g}"
+
+
+def make_param(name: str, kind: str, *, lo: float | None = None, hi: float | None = None,
+               values: Sequence[float] | None = None, points: int | None = None) -> Param:
+    """Build and check a `Param`.
+
+    Raises
+    ------
+    ModelError
+        Unknown kind, bad bounds, empty or too large a set of values, or a bad
+        number of points.
+    """
+    try:
+        check_name(name, "parameter name")
+    except FormulaError as exc:
+        raise ModelError(str(exc)) from None
+    if points is not None and (int(points) != points or points < 1 or points > 10**7):
+        raise ModelError(f"`points` for `{name}` must be a whole number from 1 to 10,000,000")
+    if kind == "real":
+        return Param(name, kind, points=points)
+    if kind == "positive":
+        return Param(name, kind, 0.0, math.inf, points=points)
+    if kind == "unit":
+        return Param(name, kind, 0.0, 1.0, points=points)
+    if kind == "interval":
+        if lo is None or hi is None or not (math.isfinite(lo) and math.isfinite(hi)):
+            raise ModelError(f"`{name}`: `in LO HI` needs two finite numbers")
+        if not lo < hi:
+            raise ModelError(f"`{name}`: `in {lo:g} {hi:g}` needs LO < HI")
+        return Param(name, kind, float(lo), float(hi), points=points)
+    if kind == "int":
+        if lo is None or hi is None or not (math.isfinite(lo) and math.isfinite(hi)):
+            raise ModelError(f"`{name}`: `int LO HI` needs two whole numbers")
+        if lo != int(lo) or hi != int(hi):
+            raise ModelError(f"`{name}`: `int {lo:g} {hi:g}` needs whole numbers")
+        if not lo <= hi:
+            raise ModelError(f"`{name}`: `int {lo:g} {hi:g}` needs LO <= HI")
+        count = int(hi) - int(lo) + 1
+        if count > MAX_DISCRETE_VALUES:
+            raise ModelError(f"`{name}`: {count:,} values; the limit is {MAX_DISCRETE_VALUES:,}")
+        vals = tuple(float(v) for v in range(int(lo), int(hi) + 1))
+        return Param(name, kind, float(lo), float(hi), vals, points=points)
+    if kind == "set":
+        if not values:
+            raise ModelError(f"`{name}`: `set` needs at least one value")
+        for v in values:
+            if not math.isfinite(v):
+                raise ModelError(f"`{name}`: set value `{v}` is not a finite number")
+        vals = tuple(sorted(set(float(v) for v in values)))
+        if len(vals) > MAX_DISCRETE_VALUES:
+            raise ModelError(f"`{name}`: too many values")
+        return Param(name, kind, vals[0], vals[-1], vals, points=points)
+    raise ModelError(f"unknown domain `{kind}`; use real, positive, unit, in LO HI, "
+                     "int LO HI or set V1 V2 ...")
+
+
+@dataclass(frozen=True)
+class Prior:
+    """A named prior ``prior NAME ~ FAMILY(args)`` or a free ``prior log EXPR``."""
+
+    target: str | None
+    family: str | None
+    args: tuple[sp.Expr, ...] = ()
+    log: sp.Expr | None = None
+    text: str = ""
+
+
+@dataclass(frozen=True)
+class Likelihood:
+    """``likelihood COL ~ FAMILY(args) [censored FLAG]`` or ``likelihood log EXPR``."""
+
+    column: str | None
+    family: str | None
+    args: tuple[sp.Expr, ...] = ()
+    censor: str | None = None
+    log: sp.Expr | None = None
+    text: str = ""
+
+
+@dataclass(frozen=True)
+class Let:
+    """A derived quantity ``let NAME = EXPR``."""
+
+    name: str
+    expr: sp.Expr
+    text: str = ""
+
+
+@dataclass(frozen=True)
+class Model:
+    """The model as declared. Every change returns a new `Model`."""
+
+    params: tuple[Param, ...] = ()
+    priors: tuple[Prior, ...] = ()
+    likelihoods: tuple[Likelihood, ...] = ()
+    lets: tuple[Let, ...] = ()
+
+    # -- lookups ---------------------------------------------------------
+    def param(self, name: str) -> Param:
+        for p in self.params:
+            if p.name == name:
+                return p
+        raise ModelError(f"no parameter `{name}`")
+
+    def has_param(self, name: str) -> bool:
+        return any(p.name == name for p in self.params)
+
+    def let(self, name: str) -> Let | None:
+        for l_ in self.lets:
+            if l_.name == name:
+                return l_
+        return None
+
+    @property
+    def param_names(self) -> tuple[str, ...]:
+        return tuple(p.name for p in self.params)
+
+    def symbols(self, data: DataSet | None = None) -> dict[str, sp.Symbol]:
+        """The names a formula may use: parameters, lets and data columns."""
+        out = {p.name: p.symbol for p in self.params}
+        out.update({l_.name: sp.Symbol(l_.name, real=True) for l_ in self.lets})
+        if data is not None:
+            out.update({n: sp.Symbol(n, real=True) for n in data.names})
+        return out
+
+    def taken(self, name: str, data: DataSet | None = None) -> str | None:
+        """What `name` already names, if anything."""
+        if self.has_param(name):
+            return "parameter"
+        if self.let(name) is not None:
+            return "let"
+        if data is not None and name in data:
+            return "data column"
+        return None
+
+    # -- changes ---------------------------------------------------------
+    def with_param(self, p: Param, data: DataSet | None = None) -> tuple["Model", bool]:
+        other = self.taken(p.name, data)
+        if other not in (None, "parameter"):
+            raise ModelError(f"`{p.name}` is already a {other}")
+        ps = list(self.params)
+        for i, q in enumerate(ps):
+            if q.name == p.name:
+                ps[i] = p
+                return replace(self, params=tuple(ps)), True
+        return replace(self, params=self.params + (p,)), False
+
+    def with_prior(self, pr: Prior) -> tuple["Model", bool]:
+        if pr.target is not None:
+            self.param(pr.target)
+            ps = list(self.priors)
+            for i, q in enumerate(ps):
+                if q.target == pr.target:
+                    ps[i] = pr
+                    return replace(self, priors=tuple(ps)), True
+        return replace(self, priors=self.priors + (pr,)), False
+
+    def with_likelihood(self, lk: Likelihood) -> tuple["Model", bool]:
+        if lk.column is not None:
+            ls = list(self.likelihoods)
+            for i, q in enumerate(ls):
+                if q.column == lk.column:
+                    ls[i] = lk
+                    return replace(self, likelihoods=tuple(ls)), True
+        return replace(self, likelihoods=self.likelihoods + (lk,)), False
+
+    def with_let(self, lt: Let, data: DataSet | None = None) -> tuple["Model", bool]:
+        other = self.taken(lt.name, data)
+        if other not in (None, "let"):
+            raise ModelError(f"`{lt.name}` is already a {other}")
+        if sp.Symbol(lt.name, real=True) in expand_lets(lt.expr, self).free_symbols:
+            raise ModelError(f"let `{lt.name}` refers to itself")
+        ls = list(self.lets)
+        for i, q in enumerate(ls):
+            if q.name == lt.name:
+                ls[i] = lt
+                return replace(self, lets=tuple(ls)), True
+        return replace(self, lets=self.lets + (lt,)), False
+
+
+def expand_lets(expr: sp.Basic, model: Model) -> sp.Basic:
+    """Replace let names by their definitions, recursively."""
+    if not model.lets:
+        return expr
+    table = {sp.Symbol(l_.name, real=True): l_.expr for l_ in model.lets}
+    for _ in range(len(table) + 1):
+        new = expr.xreplace(table)
+        if new == expr:
+            return new
+        expr = new
+    return expr
+
+
+# ---------------------------------------------------------------------------
+# compiled pieces
+
+_MODULES = [S.NAMESPACE, "scipy", "numpy"]
+
+
+def _lambdify(args: Sequence[sp.Symbol], expr: sp.Basic) -> Callable:
+    # the generated code holds only placeholder names (t0, c0, s0) and numbers:
+    # no text a user typed reaches it
+    return sp.lambdify(list(args), expr, modules=_MODULES, cse=True)
+
+
+def _placeholders(prefix: str, n: int) -> list[sp.Symbol]:
+    return [sp.Symbol(f"{prefix}{i}", real=True) for i in range(n)]
+
+
+def _as_array(v, n: int, dtype=float) -> np.ndarray:
+    a = np.asarray(v, dtype=dtype)
+    if a.shape != (n,):
+        a = np.broadcast_to(a, (n,)) if a.ndim <= 1 else a.reshape(n)
+    return a
+
+
+@dataclass(frozen=True)
+class ParamFunction:
+    """A compiled function of the parameters, vectorised over grid points."""
+
+    fn: Callable
+    index: tuple[int, ...]  # which parameters it reads, in order
+    boolean: bool = False
+
+    def __call__(self, theta: Sequence[np.ndarray]) -> np.ndarray:
+        n = theta[0].shape[0] if theta else 1
+        with np.errstate(all="ignore"):
+            out = self.fn(*[theta[i] for i in self.index])
+        return _as_array(out, n, bool if self.boolean else float)
+
+
+def param_function(expr: sp.Basic, params: Sequence[Param]) -> ParamFunction:
+    """Compile `expr` (in parameter symbols only) for evaluation on grid points."""
+    syms = [p.symbol for p in params]
+    used = [i for i, s in enumerate(syms) if s in expr.free_symbols]
+    ph = _placeholders("t", len(used))
+    e = expr.xreplace({syms[i]: ph[k] for k, i in enumerate(used)})
+    boolean = isinstance(expr, sp.logic.boolalg.Boolean) and not isinstance(expr, sp.Expr)
+    return ParamFunction(_lambdify(ph, e), tuple(used), boolean)
+
+
+@dataclass(frozen=True)
+class RowTerm:
+    """A sum over data rows of a per-row expression, evaluated row-wise."""
+
+    fn: Callable          # fn(*theta_used, *cols) -> (B, R)
+    index: tuple[int, ...]
+    columns: tuple[np.ndarray, ...]  # each (R,)
+    conds: Callable | None  # same arguments -> bool (B, R)
+
+    @property
+    def rows(self) -> int:
+        return int(self.columns[0].shape[0]) if self.columns else 1
+
+    def __call__(self, theta: Sequence[np.ndarray]) -> np.ndarray:
+        n = theta[0].shape[0] if theta else 1
+        R = self.rows
+        out = np.zeros(n)
+        step = max(1, ROW_CHUNK_CELLS // max(R, 1))
+        cols = [c[None, :] for c in self.columns]
+        with np.errstate(all="ignore"):
+            for a in range(0, n, step):
+                b = min(n, a + step)
+                th = [theta[i][a:b, None] for i in self.index]
+                v = np.broadcast_to(np.asarray(self.fn(*th, *cols), float), (b - a, R))
+                s = v.sum(axis=1)
+                if self.conds is not None:
+                    ok = np.broadcast_to(np.asarray(self.conds(*th, *cols), bool), (b - a, R))
+                    s = np.where(ok.all(axis=1), s, -np.inf)
+                out[a:b] = s
+        return out
+
+
+@dataclass(frozen=True)
+class ReducedTerm:
+    """A sum over rows reduced to sufficient statistics."""
+
+    fn: Callable          # fn(*theta_used, *stats) -> (B,)
+    index: tuple[int, ...]
+    stats: tuple[float, ...]
+    conds: Callable | None
+    fallback: RowTerm      # the same sum done row by row, to verify against
+
+    def __call__(self, theta: Sequence[np.ndarray]) -> np.ndarray:
+        n = theta[0].shape[0] if theta else 1
+        th = [theta[i] for i in self.index]
+        with np.errstate(all="ignore"):
+            out = _as_array(self.fn(*th, *self.stats), n).copy()
+            if self.conds is not None:
+                ok = _as_array(self.conds(*th, *self.stats), n, bool)
+                out[~ok] = -np.inf
+        return out
+
+
+@dataclass(frozen=True)
+class ParamTerm:
+    """A term in the parameters only (a prior, a free term with no data)."""
+
+    fn: ParamFunction
+    conds: ParamFunction | None
+
+    def __call__(self, theta: Sequence[np.ndarray]) -> np.ndarray:
+        out = self.fn(theta).copy()
+        if self.conds is not None:
+            out[~self.conds(theta)] = -np.inf
+        return out
+
+
+@dataclass(frozen=True)
+class TruncationTerm:
+    """``-log`` of the prior mass on the domain, where it depends on parameters."""
+
+    family: str
+    args: tuple[ParamFunction, ...]
+    lo: float
+    hi: float
+    values: tuple[float, ...] | None
+
+    def __call__(self, theta: Sequence[np.ndarray]) -> np.ndarray:
+        f = fam.get(self.family)
+        argv = [a(theta) for a in self.args]
+        with np.errstate(all="ignore"):
+            mass = _domain_mass(f, argv, self.lo, self.hi, self.values)
+            return -np.log(mass)
+
+
+def _domain_mass(f: fam.Family, argv, lo: float, hi: float, values) -> np.ndarray:
+    dist = f.scipy(*argv)
+    if values is not None:
+        vals = np.asarray(values, float)
+        shape = np.broadcast(*[np.asarray(a) for a in argv]).shape if argv else ()
+        total = np.zeros(shape)
+        for v in vals:
+            total = total + (dist.pmf(v) if f.discrete else dist.pdf(v))
+        return total
+    if f.discrete:
+        return dist.cdf(hi) - dist.cdf(lo - 1) if math.isfinite(lo) else dist.cdf(hi)
+    upper = dist.cdf(hi) if math.isfinite(hi) else 1.0
+    lower = dist.cdf(lo) if math.isfinite(lo) else 0.0
+    return upper - lower
+
+
+Term = ParamTerm | RowTerm | ReducedTerm | TruncationTerm
+
+
+@dataclass(frozen=True)
+class LikelihoodPart:
+    """The compiled terms of one likelihood, with what they came from."""
+
+    key: str                 # the column, or the formula of a free term
+    terms: tuple[Term, ...]
+    rows: int
+
+
+@dataclass(frozen=True)
+class Compiled:
+    """The model's log-density, ready to evaluate on blocks of grid points.
+
+    Attributes
+    ----------
+    params : tuple of Param
+    prior_terms : tuple
+        Parameter-dependent prior terms (each maps theta -> (B,)).
+    prior_const : float
+        The constant part of the log prior (uniform densities, truncation of
+        priors with constant arguments).
+    likelihood : tuple of LikelihoodPart
+    proper : bool
+        Whether the prior is proper, so that the evidence is defined.
+    improper : tuple of str
+        Why it is not, one reason each.
+    notes : tuple of str
+        What `show model` should say about the compiled form.
+    free_prior : bool
+        Whether free ``prior log`` terms are present (their normaliser is found
+        numerically when every parameter is bounded).
+    """
+
+    params: tuple[Param, ...]
+    prior_terms: tuple[Term, ...]
+    prior_const: float
+    likelihood: tuple[LikelihoodPart, ...]
+    proper: bool
+    improper: tuple[str, ...]
+    notes: tuple[str, ...]
+    free_prior: bool = False
+    model: Model = field(default_factory=Model, repr=False, compare=False)
+
+    @property
+    def dims(self) -> int:
+        return len(self.params)
+
+    def log_prior(self, theta: Sequence[np.ndarray]) -> np.ndarray:
+        """Log prior at grid points, shape (B,) (constant part included)."""
+        n = theta[0].shape[0] if theta else 1
+        out = np.full(n, self.prior_const)
+        for t in self.prior_terms:
+            out += t(theta)
+        return out
+
+    def log_likelihood(self, theta: Sequence[np.ndarray]) -> np.ndarray:
+        """Log likelihood at grid points, shape (B,)."""
+        n = theta[0].shape[0] if theta else 1
+        out = np.zeros(n)
+        for part in self.likelihood:
+            for t in part.terms:
+                out += t(theta)
+        return out
+
+    def log_density(self, theta: Sequence[np.ndarray]) -> np.ndarray:
+        """Unnormalised log posterior at grid points, shape (B,)."""
+        with np.errstate(invalid="ignore"):
+            return self.log_prior(theta) + self.log_likelihood(theta)
+
+    def function(self, expr: sp.Basic) -> ParamFunction:
+        """Compile an expression of the parameters and lets."""
+        e = expand_lets(expr, self.model)
+        bad = {s.name for s in e.free_symbols} - {p.name for p in self.params}
+        if bad:
+            raise ModelError(f"`{sorted(bad)[0]}` is a data column; a question must be about "
+                             "parameters and lets")
+        return param_function(e, self.params)
+
+    def verified(self, theta: Sequence[np.ndarray], *, tol: float = 1e-8) -> "Compiled":
+        """Check reduced sums against row-by-row sums at sample points.
+
+        A reduction to sufficient statistics can lose precision to cancellation
+        (large data values, small scales). Where it disagrees with the row-wise
+        sum by more than `tol` at sample points near the highest, that term is
+        evaluated row by row instead.
+        """
+        parts = []
+        changed = False
+        for part in self.likelihood:
+            terms = []
+            for t in part.terms:
+                if isinstance(t, ReducedTerm):
+                    a = t(theta)
+                    b = t.fallback(theta)
+                    good = np.isfinite(b)
+                    if not good.any():
+                        terms.append(t)
+                        continue
+                    near = good & (b >= b[good].max() - 50)
+                    same_inf = np.array_equal(np.isneginf(a), np.isneginf(b))
+                    if not same_inf or np.max(np.abs(a[near] - b[near])) > tol * max(1.0, part.rows ** 0.5):
+                        terms.append(t.fallback)
+                        changed = True
+                        continue
+                terms.append(t)
+            parts.append(replace(part, terms=tuple(terms)))
+        if not changed:
+            return self
+        return replace(self, likelihood=tuple(parts))
+
+    @property
+    def reduced(self) -> bool:
+        return any(isinstance(t, ReducedTerm) for p in self.likelihood for t in p.terms)
+
+    @property
+    def rows(self) -> int:
+        return sum(p.rows for p in self.likelihood)
+
+
+# ---------------------------------------------------------------------------
+# compilation
+
+def _split_conds(conds, pset, dset):
+    const, data_only, param_only, mixed = [], [], [], []
+    for c in conds:
+        fs = c.free_symbols
+        if not fs:
+            const.append(c)
+        elif fs <= dset:
+            data_only.append(c)
+        elif fs <= pset:
+            param_only.append(c)
+        else:
+            mixed.append(c)
+    return const, data_only, param_only, mixed
+
+
+class _TooBig(Exception):
+    pass
+
+
+def _expand_poly(e: sp.Expr, budget: list[int]) -> sp.Expr:
+    """Expand products and small integer powers of sums, but not inside functions."""
+    if e.is_Add:
+        out = sp.Add(*[_expand_poly(a, budget) for a in e.args])
+    elif e.is_Mul:
+        out = sp.expand_mul(sp.Mul(*[_expand_poly(a, budget) for a in e.args]), deep=False)
+    elif e.is_Pow and e.exp.is_Integer and 2 <= int(e.exp) <= 6 and e.base.is_Add:
+        base = _expand_poly(e.base, budget)
+        if len(base.args) > 8:
+            raise _TooBig
+        out = sp.expand_multinomial(sp.Pow(base, e.exp), deep=False)
+        out = sp.Add(*[sp.expand_mul(t, deep=False) for t in sp.Add.make_args(out)])
+    else:
+        return e
+    budget[0] -= len(sp.Add.make_args(out))
+    if budget[0] < 0:
+        raise _TooBig
+    return out
+
+
+def _row_term(expr, conds, psyms, csyms, colvals) -> RowTerm:
+    used = [i for i, s in enumerate(psyms) if s in expr.free_symbols or
+            any(s in c.free_symbols for c in conds)]
+    ucols = [j for j, s in enumerate(csyms) if s in expr.free_symbols or
+             any(s in c.free_symbols for c in conds)]
+    tp = _placeholders("t", len(used))
+    cp = _placeholders("c", len(ucols))
+    sub = {psyms[i]: tp[k] for k, i in enumerate(used)}
+    sub.update({csyms[j]: cp[k] for k, j in enumerate(ucols)})
+    fn = _lambdify(tp + cp, expr.xreplace(sub))
+    cfn = _lambdify(tp + cp, sp.And(*conds).xreplace(sub)) if conds else None
+    columns = tuple(colvals[j] for j in ucols)
+    if not columns:
+        # the sum has rows but reads no column: give it a row axis of the right length
+        n = len(colvals[0]) if colvals else 1
+        columns = (np.zeros(n),)
+        cp2 = _placeholders("c", 1)
+        fn = _lambdify(tp + cp2, expr.xreplace(sub) + 0 * cp2[0])
+        cfn = _lambdify(tp + cp2, sp.And(*conds).xreplace(sub)) if conds else None
+    return RowTerm(fn, tuple(used), columns, cfn)
+
+
+def _reduce_sum(expr, conds, psyms, csyms, colvals):
+    """Split sum_rows expr into sufficient statistics and a row-wise remainder.
+
+    Returns ``(reduced, stat_syms, stats, reduced_conds, remainder, remainder_conds)``:
+    `reduced` is an expression in the parameters and the statistic symbols,
+    `remainder` the part (an expression per row) that mixes data and parameters
+    in a way that does not separate. Returns None when nothing separates.
+    """
+    pset, dset = set(psyms), set(csyms)
+    rows = len(colvals[0]) if colvals else 1
+    data_fn_cache: dict = {}
+
+    def data_values(e: sp.Expr) -> np.ndarray:
+        if e not in data_fn_cache:
+            used = [j for j, s in enumerate(csyms) if s in e.free_symbols]
+            cp = _placeholders("c", len(used))
+            f = _lambdify(cp, e.xreplace({csyms[j]: cp[k] for k, j in enumerate(used)}))
+            with np.errstate(all="ignore"):
+                v = np.asarray(f(*[colvals[j] for j in used]), float)
+            data_fn_cache[e] = np.broadcast_to(v, (rows,))
+        return data_fn_cache[e]
+
+    try:
+        expanded = _expand_poly(expr, [400])
+    except _TooBig:
+        return None
+    stats: list[float] = []
+    stat_syms: list[sp.Symbol] = []
+
+    def stat(value: float) -> sp.Symbol:
+        s = sp.Symbol(f"s{len(stats)}", real=True)
+        stats.append(float(value))
+        stat_syms.append(s)
+        return s
+
+    grouped: dict[sp.Expr, list[sp.Expr]] = {}
+    extra: list[sp.Expr] = []
+    remainder: list[sp.Expr] = []
+    const_total = 0.0
+    for term in sp.Add.make_args(expanded):
+        fs = term.free_symbols
+        if not fs & pset:
+            v = data_values(term) if fs else np.full(rows, float(term))
+            if not np.all(np.isfinite(v)):
+                remainder.append(term)
+                continue
+            const_total += math.fsum(v)
+            continue
+        if not fs & dset:
+            grouped.setdefault(term, []).append(sp.Integer(rows))
+            continue
+        dpart, ppart, mixed = [], [], []
+        for f_ in sp.Mul.make_args(term):
+            ffs = f_.free_symbols
+            if not ffs & dset:
+                ppart.append(f_)
+            elif not ffs & pset:
+                dpart.append(f_)
+            else:
+                mixed.append(f_)
+        if not mixed:
+            v = data_values(sp.Mul(*dpart))
+            if np.all(np.isfinite(v)):
+                grouped.setdefault(sp.Mul(*ppart), []).append(stat(math.fsum(v)))
+                continue
+        elif len(mixed) == 1 and isinstance(mixed[0], (S.xlogy, S.xlog1py)) and not dpart:
+            # sum_i xlogy(a_i, b) = xlogy(sum_i a_i, b) when every a_i >= 0
+            a, b = mixed[0].args
+            if a.free_symbols <= dset and not (b.free_symbols & dset):
+                v = data_values(a)
+                if np.all(np.isfinite(v)) and np.all(v >= 0):
+                    extra.append(sp.Mul(*ppart) * type(mixed[0])(stat(math.fsum(v)), b))
+                    continue
+        remainder.append(term)
+    red_conds, rem_conds = [], []
+    for c in conds:
+        if not isinstance(c, sp.core.relational.Relational):
+            rem_conds.append(c)
+            continue
+        lhs, rhs = c.lhs, c.rhs
+        ld, rd = lhs.free_symbols <= dset, rhs.free_symbols <= dset
+        lp, rp = not (lhs.free_symbols & dset), not (rhs.free_symbols & dset)
+        if ld and rp:
+            v = data_values(lhs)
+        elif rd and lp:
+            v = data_values(rhs)
+        else:
+            rem_conds.append(c)
+            continue
+        # data < param for every row: the largest data value decides (and so on)
+        big = isinstance(c, (sp.StrictLessThan, sp.LessThan)) == ld
+        s = stat(float(np.max(v) if big else np.min(v)))
+        red_conds.append(c.func(s, rhs) if ld else c.func(lhs, s))
+    if not grouped and not extra and not red_conds:
+        return None
+    total = sp.Add(*[sp.Add(*coefs) * b for b, coefs in grouped.items()], *extra)
+    total = total + stat(const_total)
+    return total, stat_syms, stats, red_conds, sp.Add(*remainder), rem_conds
+
+
+def _sum_terms(expr, conds, params, csyms, colvals, *, reduce: bool = True) -> list[Term]:
+    """The terms of sum_rows expr (with its row conditions)."""
+    psyms = [p.symbol for p in params]
+    red = _reduce_sum(expr, conds, psyms, csyms, colvals) if reduce else None
+    if red is None:
+        return [_row_term(expr, conds, psyms, csyms, colvals)]
+    total, ssyms, stats, rconds, rem, rem_conds = red
+    fallback = _row_term(expr - rem, [c for c in conds if c not in rem_conds], psyms, csyms,
+                         colvals)
+    used = [i for i, s in enumerate(psyms) if s in total.free_symbols or
+            any(s in c.free_symbols for c in rconds)]
+    tp = _placeholders("t", len(used))
+    sub = {psyms[i]: tp[k] for k, i in enumerate(used)}
+    fn = _lambdify(tp + ssyms, total.xreplace(sub))
+    cfn = _lambdify(tp + ssyms, sp.And(*rconds).xreplace(sub)) if rconds else None
+    out: list[Term] = [ReducedTerm(fn, tuple(used), tuple(stats), cfn, fallback)]
+    if rem != 0 or rem_conds:
+        out.append(_row_term(rem, rem_conds, psyms, csyms, colvals))
+    return out
+
+
+def _param_term(expr, conds, params) -> ParamTerm:
+    return ParamTerm(param_function(expr, params),
+                     param_function(sp.And(*conds), params) if conds else None)
+
+
+def _support_text(f: fam.Family) -> str:
+    return f.support
+
+
+def _check_data_conds(conds, csyms, colvals, where: str, f: fam.Family | None, names):
+    """Data-only conditions must hold on every row; name the first that breaks."""
+    for c in conds:
+        used = [j for j, s in enumerate(csyms) if s in c.free_symbols]
+        cp = _placeholders("c", len(used))
+        fn = _lambdify(cp, c.xreplace({csyms[j]: cp[k] for k, j in enumerate(used)}))
+        with np.errstate(all="ignore"):
+            ok = np.broadcast_to(np.asarray(fn(*[colvals[j] for j in used]), bool),
+                                 colvals[used[0]].shape)
+        if not ok.all():
+            r = int(np.argmin(ok))
+            col = names[used[0]]
+            val = colvals[used[0]][r]
+            rule = f"the support of `{f.name}` ({f.support})" if f else f"`{c}`"
+            raise DataError(f"{where}: column `{col}` row {r + 1} value {val:g} is outside {rule}")
+
+
+def compile_model(model: Model, data: DataSet, *, reduce: bool = True,
+                  rows_from: dict[str, int] | None = None) -> Compiled:
+    """Compile `model` over `data` into a vectorised log-density.
+
+    Parameters
+    ----------
+    model : Model
+    data : DataSet
+    reduce : bool, keyword-only
+        Reduce sums over rows to sufficient statistics where possible.
+    rows_from : dict of str to int, keyword-only
+        Only rows from this index on, per likelihood key (used to add newly
+        appended rows to an existing posterior).
+
+    Raises
+    ------
+    ModelError, DataError
+        A rule of the model or the data is broken; the message names where.
+    """
+    params = model.params
+    if not params:
+        raise ModelError("no parameters; declare one with `param NAME ...`")
+    psyms = [p.symbol for p in params]
+    pset = set(psyms)
+    notes: list[str] = []
+    improper: list[str] = []
+    prior_terms: list[Term] = []
+    prior_const = 0.0
+    named = {pr.target: pr for pr in model.priors if pr.target is not None}
+    free_priors = [pr for pr in model.priors if pr.target is None]
+
+    def lets_out(e, what):
+        e = expand_lets(e, model)
+        extra = {s.name for s in e.free_symbols} - {p.name for p in params}
+        if extra:
+            raise ModelError(f"{what} uses `{sorted(extra)[0]}`, which is not a parameter; "
+                             "priors take parameters and numbers only")
+        return e
+
+    for p in params:
+        pr = named.get(p.name)
+        if pr is None:
+            lu = p.log_uniform()
+            if lu is None:
+                improper.append(f"`{p.name}` has no prior and an unbounded domain: "
+                                "a flat improper prior")
+            else:
+                prior_const += lu
+            continue
+        f = fam.get(pr.family)
+        args = tuple(lets_out(a, f"prior of `{p.name}`") for a in pr.args)
+        if f.discrete and not p.discrete:
+            raise ModelError(f"prior of `{p.name}` is `{f.name}`, a discrete distribution, "
+                             f"but `{p.name}` is continuous")
+        term = fam.density(f.name, p.symbol, args)
+        const, _, pconds, mixed = _split_conds(term.conds, pset, set())
+        pconds = pconds + mixed
+        for c in const:
+            if c in (sp.false, False):
+                raise ModelError(f"prior of `{p.name}`: `{f.name}` needs {'; '.join(f.constraints)}")
+        prior_terms.append(_param_term(term.expr, pconds, params))
+        # truncation to the domain, renormalised
+        arg_const = all(not a.free_symbols for a in args)
+        needs = p.discrete or math.isfinite(p.lo) or math.isfinite(p.hi)
+        if needs and arg_const:
+            argv = [float(a) for a in args]
+            with np.errstate(all="ignore"):
+                mass = float(_domain_mass(f, argv, p.lo, p.hi, p.values if p.discrete else None))
+            if not mass > 0 or not math.isfinite(mass):
+                raise ModelError(f"prior of `{p.name}` puts no mass on its domain "
+                                 f"({p.describe()})")
+            prior_const -= math.log(mass)
+            if p.discrete:
+                if f.discrete and abs(mass - 1) > 1e-12:
+                    notes.append(f"prior of `{p.name}` is truncated to its {len(p.values)} values "
+                                 f"and renormalised: {1 - mass:.3g} of its mass was cut")
+                elif not f.discrete:
+                    notes.append(f"prior of `{p.name}` is `{f.name}` read at its "
+                                 f"{len(p.values)} values and renormalised to sum to 1")
+            elif abs(mass - 1) > 1e-12:
+                notes.append(f"prior of `{p.name}` is truncated to its domain and renormalised: "
+                             f"{1 - mass:.3g} of its mass was cut")
+        elif needs:
+            prior_terms.append(TruncationTerm(
+                f.name, tuple(param_function(a, params) for a in args), p.lo, p.hi,
+                p.values if p.discrete else None))
+            notes.append(f"prior of `{p.name}` depends on other parameters; its truncation to "
+                         "the domain is renormalised at every grid point")
+
+    for pr in free_priors:
+        e = lets_out(pr.log, "`prior log`")
+        prior_terms.append(_param_term(e, [], params))
+    if free_priors and not all(p.bounded or p.discrete for p in params):
+        unb = [p.name for p in params if not (p.bounded or p.discrete)]
+        improper.append(f"a free `prior log` term with unbounded `{unb[0]}`: quadrat cannot "
+                        "normalise it")
+
+    # likelihoods
+    cols = list(data.names)
+    csyms = [sp.Symbol(n, real=True) for n in cols]
+    dset = set(csyms)
+    parts: list[LikelihoodPart] = []
+    for lk in model.likelihoods:
+        key = lk.column if lk.column is not None else (lk.text or "likelihood log")
+        where = f"likelihood `{key}`"
+        if lk.column is not None:
+            f = fam.get(lk.family)
+            if lk.column not in data:
+                raise DataError(f"{where}: no data column `{lk.column}`")
+            ysym = sp.Symbol(lk.column, real=True)
+            args = tuple(expand_lets(a, model) for a in lk.args)
+            pieces = []
+            if lk.censor:
+                if lk.censor not in data:
+                    raise DataError(f"{where}: no data column `{lk.censor}` for censoring flags")
+                flags = data.values(lk.censor)
+                bad = np.flatnonzero((flags != 0) & (flags != 1))
+                if bad.size:
+                    raise DataError(f"{where}: column `{lk.censor}` row {bad[0] + 1} value "
+                                    f"{flags[bad[0]]:g}: censoring flags must be 0 or 1")
+                pieces.append((fam.density(f.name, ysym, args), flags == 0, "observed"))
+                pieces.append((fam.density(f.name, ysym, args, survival=True), flags == 1,
+                               "censored"))
+            else:
+                pieces.append((fam.density(f.name, ysym, args), None, ""))
+            used_cols = {ysym} | set().union(*[a.free_symbols for a in args]) & dset
+            if lk.censor:
+                used_cols.add(sp.Symbol(lk.censor, real=True))
+        else:
+            f = None
+            e = expand_lets(lk.log, model)
+            pieces = [(fam.Term(e, ()), None, "")]
+            used_cols = e.free_symbols & dset
+        unknown = set()
+        for t, _, _ in pieces:
+            unknown |= {s.name for s in t.expr.free_symbols} - {s.name for s in psyms} - set(cols)
+        if unknown:
+            raise ModelError(f"{where} uses unknown `{sorted(unknown)[0]}`")
+        lengths = {s.name: data.get(s.name).rows for s in used_cols}
+        if len(set(lengths.values())) > 1:
+            shown = ", ".join(f"`{k}` {v} rows" for k, v in sorted(lengths.items()))
+            raise DataError(f"{where}: its columns differ in length ({shown})")
+        nrows = next(iter(lengths.values())) if lengths else 0
+        start = (rows_from or {}).get(key, 0)
+        terms: list[Term] = []
+        for t, mask, label in pieces:
+            sel = np.arange(nrows) >= start
+            if mask is not None:
+                sel &= mask
+            if not used_cols:
+                const, _, pconds, mixed = _split_conds(t.conds, pset, dset)
+                if start == 0:
+                    terms.append(_param_term(t.expr, pconds + mixed, params))
+                continue
+            colvals = [np.ascontiguousarray(data.values(n)[sel]) for n in cols]
+            if not sel.any():
+                continue
+            const, donly, pconds, mixed = _split_conds(t.conds, pset, dset)
+            for c in const:
+                if c in (sp.false, False):
+                    raise ModelError(f"{where}: `{f.name if f else 'term'}` needs "
+                                     f"{'; '.join(f.constraints) if f else str(c)}")
+            _check_data_conds(donly, csyms, colvals, where, f, cols)
+            terms.extend(_sum_terms(t.expr, mixed, params, csyms, colvals, reduce=reduce))
+            if pconds:
+                terms.append(_param_term(sp.Integer(0), pconds, params))
+        parts.append(LikelihoodPart(key, tuple(terms), nrows))
+
+    return Compiled(tuple(params), tuple(prior_terms), prior_const, tuple(parts),
+                    not improper, tuple(improper), tuple(notes), bool(free_priors), model)

@@ -1,0 +1,720 @@
+"""Streaming reduction of a tensor grid into a `Posterior`.
+
+The grid is walked in blocks of points (about a million by default). Each block's
+log-density is evaluated, weighted by the rule (and the Jacobian of the axis
+scales), and reduced at once in log space against a running maximum: the
+evidence, every 1-D marginal, the 2-D marginals asked for, and the first two
+moments. The same sums over the nested coarse grids (every second node) are
+accumulated in the same pass and give the error estimates. Memory stays
+O(block + sum of axis lengths), whatever the number of points.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+from dataclasses import dataclass, field
+from typing import Callable, Sequence
+
+import numpy as np
+from scipy import interpolate, optimize
+
+from .errors import ComputeError, GridError
+from .grid import Axis, Grid, check_grid
+from .model import Compiled
+
+#: Default number of grid points per block.
+BLOCK = 1 << 20
+#: Grids up to this many points keep their log-density for later questions.
+STORE_LIMIT = 1 << 24
+
+
+# ---------------------------------------------------------------------------
+# results
+
+@dataclass(frozen=True)
+class Estimate:
+    """A number with its estimated absolute error.
+
+    Attributes
+    ----------
+    value : float
+    error : float or None
+        Estimated absolute error; None where no nested estimate exists.
+    method : str
+        ``nested`` (difference with the nested coarse grid, projected where the
+        convergence is geometric), ``richardson`` (value extrapolated because the
+        observed order matches the rule's), ``exact`` (discrete sums) or ``none``.
+    """
+
+    value: float
+    error: float | None = None
+    method: str = "none"
+
+
+def combine(v0: float, v1: float | None, v2: float | None = None, *, order: int = 2,
+            exact: bool = False) -> Estimate:
+    """Error estimate of `v0` from the values `v1`, `v2` on nested coarser grids.
+
+    Halving the spacing divides an algebraic error by ``2**order``; for a smooth
+    integrand negligible at the ends the trapezoid rule's error falls much faster
+    (geometrically), and extrapolation would make the answer worse. So the value
+    is extrapolated only where the observed ratio of successive differences
+    matches ``2**order``; where it is far larger, the next difference is
+    projected from the geometric decay; otherwise the last difference is the
+    (conservative) error.
+    """
+    if exact:
+        return Estimate(v0, 0.0, "exact")
+    if v1 is None or not math.isfinite(v1):
+        return Estimate(v0, None, "none")
+    d1 = v0 - v1
+    if v2 is None or not math.isfinite(v2):
+        return Estimate(v0, abs(d1), "nested")
+    d2 = v1 - v2
+    floor = 4e-16 * max(abs(v0), 1e-300)
+    if abs(d1) <= floor:
+        return Estimate(v0, floor, "nested")
+    if abs(d2) <= 1e4 * floor:
+        # both differences are rounding noise: converged; no order can be read
+        return Estimate(v0, max(abs(d1), floor), "nested")
+    ratio = d2 / d1
+    expected = 2.0 ** order
+    significant = abs(d2) > 1e-8 * max(abs(v0), 1e-300)
+    if significant and 0.75 * expected <= ratio <= 1.35 * expected:
+        extra = d1 / (ratio - 1.0)
+        return Estimate(v0 + extra, abs(extra), "richardson")
+    if abs(ratio) > 4 * expected:
+        return Estimate(v0, max(abs(d1) / abs(ratio), floor), "nested")
+    return Estimate(v0, abs(d1), "nested")
+
+
+@dataclass(frozen=True)
+class Interval:
+    """A credible interval (or, for a multimodal HPD region, several).
+
+    Attributes
+    ----------
+    lo, hi : Estimate
+        The ends (the outermost ends when `pieces` has more than one).
+    level : float
+    kind : str
+        ``central`` or ``hpd``.
+    pieces : tuple of (float, float)
+        The intervals of an HPD region; one for a unimodal marginal.
+    """
+
+    lo: Estimate
+    hi: Estimate
+    level: float
+    kind: str
+    pieces: tuple[tuple[float, float], ...] = ()
+
+
+class Marginal:
+    """The posterior marginal of one parameter on its axis.
+
+    Built from the posterior mass each node carries. Quantiles come from a
+    quintic spline of the density on the axis's scale, integrated exactly, so
+    they converge much faster than the node spacing.
+    """
+
+    def __init__(self, axis: Axis, mass: np.ndarray, keep: np.ndarray | None = None,
+                 weights: np.ndarray | None = None):
+        keep = np.ones(axis.n, bool) if keep is None else keep
+        self.axis = axis
+        self.name = axis.name
+        self.discrete = axis.discrete
+        self.u = axis.u[keep]
+        self.values = axis.values[keep]
+        self.weights = (axis.weights if weights is None else weights)[keep]
+        self.logjac = axis.logjac[keep]
+        total = mass[keep].sum()
+        if not total > 0:
+            raise ComputeError(f"the marginal of `{axis.name}` has no mass on this grid")
+        self.mass = mass[keep] / total
+        self._spline = None
+
+    # -- moments ---------------------------------------------------------
+    @property
+    def mean(self) -> float:
+        return float(np.dot(self.mass, self.values))
+
+    @property
+    def sd(self) -> float:
+        m = self.mean
+        return float(math.sqrt(max(np.dot(self.mass, (self.values - m) ** 2), 0.0)))
+
+    def density(self) -> np.ndarray:
+        """Density in the parameter's units at the nodes (the pmf if discrete)."""
+        if self.discrete:
+            return self.mass.copy()
+        return self.mass / (self.weights * np.exp(self.logjac))
+
+    # -- the cdf ---------------------------------------------------------
+    def _cdf_spline(self):
+        if self._spline is None:
+            g = self.mass / self.weights
+            k = min(5, len(self.u) - 1)
+            if k < 1:
+                raise ComputeError(f"`{self.name}` has one grid point: no quantiles")
+            if k % 2 == 0:
+                k -= 1
+            spl = interpolate.make_interp_spline(self.u, g, k=k)
+            anti = spl.antiderivative()
+            ua, ub = self.axis.to_u(np.array([self.axis.lo, self.axis.hi]))
+            ua = min(float(ua), self.u[0])
+            ub = max(float(ub), self.u[-1])
+            f0 = float(anti(ua))
+            total = float(anti(ub)) - f0
+            self._spline = (spl, anti, ua, ub, f0, total)
+        return self._spline
+
+    def cdf_u(self, u: np.ndarray | float) -> np.ndarray:
+        spl, anti, ua, ub, f0, total = self._cdf_spline()
+        uu = np.clip(u, ua, ub)
+        return np.clip((anti(uu) - f0) / total, 0.0, 1.0)
+
+    def cdf(self, x: float) -> float:
+        """P(parameter <= x)."""
+        if self.discrete:
+            return float(self.mass[self.values <= x + 1e-12 * max(1, abs(x))].sum())
+        u = float(self.axis.to_u(np.array([x]))[0]) if self._inside(x) else (
+            -np.inf if x <= self.axis.lo else np.inf)
+        if u == -np.inf:
+            return 0.0
+        if u == np.inf:
+            return 1.0
+        return float(self.cdf_u(u))
+
+    def _inside(self, x: float) -> bool:
+        return self.axis.lo < x < self.axis.hi
+
+    def quantile(self, q: float) -> float:
+        """The q-quantile (for a discrete parameter, the smallest value with cdf >= q)."""
+        if not 0 <= q <= 1:
+            raise ComputeError(f"quantile level must be between 0 and 1; got {q:g}")
+        if self.discrete:
+            c = np.cumsum(self.mass)
+            i = int(np.searchsorted(c, q - 1e-12))
+            return float(self.values[min(i, len(self.values) - 1)])
+        spl, anti, ua, ub, f0, total = self._cdf_spline()
+        if q <= 0:
+            return float(self.axis.to_value(np.array([ua]))[0])
+        if q >= 1:
+            return float(self.axis.to_value(np.array([ub]))[0])
+        knots = np.concatenate([[ua], self.u, [ub]])
+        c = self.cdf_u(knots)
+        i = int(np.searchsorted(c, q))
+        i = min(max(i, 1), len(knots) - 1)
+        a, b = knots[i - 1], knots[i]
+        fa, fb = float(self.cdf_u(a)) - q, float(self.cdf_u(b)) - q
+        if fa == 0:
+            uq = a
+        elif fb == 0 or fa * fb > 0:
+            uq = b if abs(fb) < abs(fa) else a
+        else:
+            uq = optimize.brentq(lambda t: float(self.cdf_u(t)) - q, a, b, xtol=1e-14,
+                                 rtol=1e-15, maxiter=200)
+        return float(self.axis.to_value(np.array([uq]))[0])
+
+    # -- intervals ---------------------------------------------------------
+    def central(self, level: float) -> tuple[float, float]:
+        a = (1 - level) / 2
+        return self.quantile(a), self.quantile(1 - a)
+
+    def hpd(self, level: float) -> tuple[tuple[float, float], ...]:
+        """Highest-density region (in the parameter's units) holding `level`."""
+        if self.discrete:
+            order = np.argsort(-self.mass, kind="stable")
+            c = np.cumsum(self.mass[order])
+            k = int(np.searchsorted(c, level - 1e-12)) + 1
+            chosen = np.sort(self.values[order[:k]])
+            return _runs(chosen, self.values)
+        spl, anti, ua, ub, f0, total = self._cdf_spline()
+        mesh = np.linspace(ua, ub, max(4000, 20 * len(self.u)))
+        ax = self.axis
+
+        def fnat(u):
+            # density in the parameter's units: g(u) / |dv/du|
+            v = np.maximum(spl(u), 0.0) / total
+            lj = _logjac_of(ax, u)
+            return v / np.exp(lj)
+
+        fm = fnat(mesh)
+
+        def region(t):
+            above = fm > t
+            if not above.any():
+                return []
+            edges = np.flatnonzero(np.diff(above.astype(np.int8)))
+            starts = ([0] if above[0] else []) + [e + 1 for e in edges if not above[e]]
+            ends = [e for e in edges if above[e]] + ([len(mesh) - 1] if above[-1] else [])
+            out = []
+            for s, e in zip(starts, ends):
+                a = mesh[s] if s == 0 else _cross(fnat, t, mesh[s - 1], mesh[s])
+                b = mesh[e] if e == len(mesh) - 1 else _cross(fnat, t, mesh[e], mesh[e + 1])
+                out.append((a, b))
+            return out
+
+        def mass(t):
+            return sum(float(self.cdf_u(b) - self.cdf_u(a)) for a, b in region(t))
+
+        top = float(fm.max())
+        if mass(0.0) < level:
+            t = 0.0
+        else:
+            t = optimize.brentq(lambda t: mass(t) - level, 0.0, top, xtol=1e-15 * top,
+                                rtol=1e-13, maxiter=300)
+        pieces = region(t)
+        return tuple((float(ax.to_value(np.array([a]))[0]), float(ax.to_value(np.array([b]))[0]))
+                     for a, b in pieces)
+
+
+def _logjac_of(ax: Axis, u):
+    from .grid import _logjac
+    return _logjac(u, ax.scale, ax.dom_lo, ax.dom_hi)
+
+
+def _cross(f, t, a, b):
+    fa, fb = f(np.array([a]))[0] - t, f(np.array([b]))[0] - t
+    if fa * fb > 0:
+        return a if abs(fa) < abs(fb) else b
+    return optimize.brentq(lambda u: f(np.array([u]))[0] - t, a, b, xtol=1e-14, rtol=1e-15)
+
+
+def _runs(chosen: np.ndarray, values: np.ndarray) -> tuple[tuple[float, float], ...]:
+    """Group chosen discrete values into runs of consecutive values of `values`."""
+    pos = np.searchsorted(values, chosen)
+    out = []
+    start = prev = pos[0]
+    for p in pos[1:]:
+        if p != prev + 1:
+            out.append((float(values[start]), float(values[prev])))
+            start = p
+        prev = p
+    out.append((float(values[start]), float(values[prev])))
+    return tuple(out)
+
+
+@dataclass(frozen=True)
+class Diagnostics:
+    """What the pass saw that a user should know about.
+
+    Attributes
+    ----------
+    zero_points : int
+        Grid points where the posterior density is zero (log-density -inf).
+    edge_mass : dict of str to (float, float)
+        Posterior mass carried by the first and last node of each continuous axis.
+    min_points_per_sd : float
+        The smallest number of nodes across one posterior sd, over the axes.
+    """
+
+    zero_points: int
+    edge_mass: dict[str, tuple[float, float]]
+    min_points_per_sd: float
+
+
+@dataclass(frozen=True)
+class Posterior:
+    """The posterior on a grid, as reduced in one pass.
+
+    Attributes
+    ----------
+    grid : Grid
+    compiled : Compiled
+    log_mass : tuple of float
+        ``log`` of the integral of prior x likelihood over the grid, on the fine
+        grid and on each nested coarse grid.
+    log_evidence : Estimate or None
+        None where the prior is improper (the evidence is then not defined).
+    marginals : dict of str to Marginal
+    coarse_marginals : tuple of dict
+        The same marginals on the nested coarse grids.
+    mean, cov : ndarray, shapes (d,) and (d, d)
+    coarse_moments : tuple of (ndarray, ndarray)
+    pairs : dict of (int, int) to ndarray
+        2-D marginal node masses, shape (n_i, n_j).
+    best : dict of str to float
+        The grid point of highest posterior density.
+    best_logp : float
+    diagnostics : Diagnostics
+    seconds : float
+    logp : ndarray or None
+        The unnormalised log posterior at every point (flat), kept for small
+        grids so that questions need not evaluate the model again.
+    """
+
+    grid: Grid
+    compiled: Compiled
+    log_mass: tuple[float, ...]
+    log_evidence: Estimate | None
+    marginals: dict[str, Marginal]
+    coarse_marginals: tuple[dict[str, Marginal], ...]
+    mean: np.ndarray
+    cov: np.ndarray
+    coarse_moments: tuple[tuple[np.ndarray, np.ndarray], ...]
+    pairs: dict[tuple[int, int], np.ndarray]
+    best: dict[str, float]
+    best_logp: float
+    diagnostics: Diagnostics
+    seconds: float
+    logp: np.ndarray | None = field(default=None, repr=False)
+    log_prior_norm: float = 0.0
+
+    @property
+    def names(self) -> tuple[str, ...]:
+        return self.grid.names
+
+    @property
+    def levels(self) -> int:
+        return len(self.coarse_marginals)
+
+    def marginal(self, name: str) -> Marginal:
+        if name not in self.marginals:
+            raise GridError(f"no parameter `{name}`")
+        return self.marginals[name]
+
+    def _levels_of(self, name: str) -> list[Marginal]:
+        return [self.marginals[name]] + [c[name] for c in self.coarse_marginals]
+
+    def _estimate(self, name: str, f: Callable[[Marginal], float]) -> Estimate:
+        ms = self._levels_of(name)
+        vals = []
+        for m in ms:
+            try:
+                vals.append(f(m))
+            except (ComputeError, ValueError):
+                vals.append(None)
+        ax = self.grid.axis(name)
+        v1 = vals[1] if len(vals) > 1 else None
+        v2 = vals[2] if len(vals) > 2 else None
+        if self.levels == 0:
+            return Estimate(vals[0], None, "none")
+        exact = all(a.discrete for a in self.grid.axes)
+        return combine(vals[0], v1, v2, order=ax.order or 2, exact=exact)
+
+    def param_mean(self, name: str) -> Estimate:
+        return self._estimate(name, lambda m: m.mean)
+
+    def param_sd(self, name: str) -> Estimate:
+        return self._estimate(name, lambda m: m.sd)
+
+    def quantile(self, name: str, q: float) -> Estimate:
+        return self._estimate(name, lambda m: m.quantile(q))
+
+    def interval(self, name: str, level: float = 0.95, kind: str = "central") -> Interval:
+        """Central or HPD interval of parameter `name`."""
+        if not 0 < level < 1:
+            raise ComputeError(f"interval level must be between 0 and 1; got {level:g}")
+        if kind not in ("central", "hpd"):
+            raise ComputeError(f"interval kind must be `central` or `hpd`; got `{kind}`")
+        if kind == "central":
+            lo = self._estimate(name, lambda m: m.central(level)[0])
+            hi = self._estimate(name, lambda m: m.central(level)[1])
+            return Interval(lo, hi, level, kind, ((lo.value, hi.value),))
+        pieces = self.marginal(name).hpd(level)
+        lo = self._estimate(name, lambda m: m.hpd(level)[0][0])
+        hi = self._estimate(name, lambda m: m.hpd(level)[-1][1])
+        return Interval(Estimate(pieces[0][0], lo.error, lo.method),
+                        Estimate(pieces[-1][1], hi.error, hi.method), level, kind, pieces)
+
+    def correlation(self) -> np.ndarray:
+        sd = np.sqrt(np.maximum(np.diag(self.cov), 0))
+        with np.errstate(all="ignore"):
+            return self.cov / np.outer(sd, sd)
+
+    def pair(self, a: str, b: str) -> np.ndarray:
+        """2-D marginal node masses of parameters `a` (rows) and `b` (columns)."""
+        i, j = self.grid.index(a), self.grid.index(b)
+        if (i, j) in self.pairs:
+            return self.pairs[(i, j)]
+        if (j, i) in self.pairs:
+            return self.pairs[(j, i)].T
+        raise ComputeError(f"the joint of `{a}` and `{b}` was not kept; compute again with it")
+
+
+# ---------------------------------------------------------------------------
+# the pass
+
+class _Acc:
+    """Running sums in log space against a common reference `M`."""
+
+    def __init__(self, grid: Grid, levels: int, pairs: Sequence[tuple[int, int]],
+                 centre: np.ndarray):
+        d = len(grid.axes)
+        self.M = -np.inf
+        self.L = levels
+        self.Z = np.zeros(levels + 1)
+        self.marg = [np.zeros((levels + 1, a.n)) for a in grid.axes]
+        self.S1 = np.zeros((levels + 1, d))
+        self.S2 = np.zeros((levels + 1, d, d))
+        self.pairs = {p: np.zeros((grid.axes[p[0]].n, grid.axes[p[1]].n)) for p in pairs}
+        self.centre = centre
+
+    def rescale(self, new_m: float):
+        if self.M == -np.inf:
+            self.M = new_m
+            return
+        f = math.exp(self.M - new_m)
+        self.Z *= f
+        for m in self.marg:
+            m *= f
+        self.S1 *= f
+        self.S2 *= f
+        for p in self.pairs.values():
+            p *= f
+        self.M = new_m
+
+    def add(self, level: int, w: np.ndarray, idx, theta_c: np.ndarray):
+        self.Z[level] += w.sum()
+        for d, i in enumerate(idx):
+            self.marg[d][level] += np.bincount(i, weights=w, minlength=self.marg[d].shape[1])
+        tw = theta_c * w[:, None]
+        self.S1[level] += tw.sum(axis=0)
+        self.S2[level] += tw.T @ theta_c
+
+
+def _block_theta(grid: Grid, idx) -> list[np.ndarray]:
+    return [a.values[i] for a, i in zip(grid.axes, idx)]
+
+
+def evaluate_block(compiled: Compiled, theta: Sequence[np.ndarray]) -> np.ndarray:
+    """Unnormalised log posterior at grid points: zero prior wins over NaN likelihood."""
+    with np.errstate(all="ignore"):
+        lpr = compiled.log_prior(theta)
+        lp = lpr + compiled.log_likelihood(theta)
+    lp[np.isneginf(lpr)] = -np.inf
+    return lp
+
+
+def compute(compiled: Compiled, grid: Grid, *, block: int = BLOCK,
+            pairs: Sequence[tuple[int, int]] | None = None,
+            progress: Callable[[int, int], None] | None = None,
+            store: bool | None = None) -> Posterior:
+    """Evaluate the posterior of `compiled` on `grid`, in blocks.
+
+    Parameters
+    ----------
+    compiled : Compiled
+    grid : Grid
+        One axis per parameter, in the model's order.
+    block : int, keyword-only
+        Grid points per block (memory is O(block)).
+    pairs : sequence of (int, int), keyword-only
+        Which 2-D marginals to keep; by default all pairs while the model has at
+        most 4 parameters and each pair has at most 4 million cells.
+    progress : callable, keyword-only
+        Called as ``progress(done, total)`` after each block.
+    store : bool, keyword-only
+        Keep the log-density of every point (default: when the grid has at most
+        `STORE_LIMIT` points).
+
+    Returns
+    -------
+    Posterior
+
+    Raises
+    ------
+    ComputeError
+        The log-density is NaN or +inf somewhere, or zero everywhere.
+    """
+    t0 = time.perf_counter()
+    check_grid(grid, compiled.params)
+    d = len(grid.axes)
+    if pairs is None:
+        pairs = [(i, j) for i in range(d) for j in range(i + 1, d)
+                 if d <= 4 and grid.axes[i].n * grid.axes[j].n <= 4_000_000]
+    levels = grid.levels
+    if store is None:
+        store = grid.size <= STORE_LIMIT
+    # verify reduced sums against row-wise sums on a sample of points
+    rng = np.random.default_rng(0)
+    sample = rng.integers(0, grid.size, size=min(grid.size, 256))
+    centre_flat = np.ravel_multi_index(tuple(a.n // 2 for a in grid.axes), grid.shape)
+    sample = np.concatenate([[centre_flat], sample])
+    sidx = np.unravel_index(sample, grid.shape)
+    compiled = compiled.verified(_block_theta(grid, sidx))
+
+    centre = np.array([a.values[a.n // 2] for a in grid.axes])
+    acc = _Acc(grid, levels, pairs, centre)
+    logp_all = np.empty(grid.size) if store else None
+    nan_count = 0
+    nan_first = None
+    zero = 0
+    best_lp, best_flat = -np.inf, 0
+    done = 0
+    for start, stop in grid.blocks(block):
+        idx = grid.indices(start, stop)
+        theta = _block_theta(grid, idx)
+        lp = evaluate_block(compiled, theta)
+        bad = np.isnan(lp)
+        if bad.any():
+            nan_count += int(bad.sum())
+            if nan_first is None:
+                nan_first = start + int(np.argmax(bad))
+            lp[bad] = -np.inf
+        pos = np.isposinf(lp)
+        if pos.any():
+            where = grid.point(start + int(np.argmax(pos)))
+            raise ComputeError("the log-density is +inf at " + _point_text(where) +
+                               " (the density is unbounded there); keep the grid away from that "
+                               "point or grid it on its log / logit scale")
+        if store:
+            logp_all[start:stop] = lp
+        zero += int(np.isneginf(lp).sum())
+        k = int(np.argmax(lp))
+        if lp[k] > best_lp:
+            best_lp, best_flat = float(lp[k]), start + k
+        lw = np.zeros(stop - start)
+        for a, i in zip(grid.axes, idx):
+            lw += a.logw[i]
+        t = lp + lw
+        bm = float(np.max(t))
+        if bm > acc.M and np.isfinite(bm):
+            acc.rescale(bm)
+        if np.isfinite(acc.M):
+            theta_c = np.column_stack(theta) - centre
+            w = np.exp(t - acc.M)
+            acc.add(0, w, idx, theta_c)
+            for lev in range(levels):
+                lwc = np.zeros(stop - start)
+                for a, i in zip(grid.axes, idx):
+                    lwc += a.coarse[lev][i]
+                m = np.isfinite(lwc)
+                if m.any():
+                    wc = np.exp(lp[m] + lwc[m] - acc.M)
+                    acc.add(lev + 1, wc, tuple(i[m] for i in idx), theta_c[m])
+            for (a_, b_), arr in acc.pairs.items():
+                nb = grid.axes[b_].n
+                flat = idx[a_] * nb + idx[b_]
+                arr += np.bincount(flat, weights=w, minlength=arr.size).reshape(arr.shape)
+        done = stop
+        if progress is not None:
+            progress(done, grid.size)
+
+    if nan_count:
+        where = grid.point(nan_first)
+        raise ComputeError(
+            f"the log-density is NaN at {nan_count:,} of {grid.size:,} grid points "
+            f"({100 * nan_count / grid.size:.3g}%), first at {_point_text(where)}; a formula is "
+            "outside its domain there (log or sqrt of a negative number, 0/0, ...)")
+    if not np.isfinite(acc.M) or acc.Z[0] <= 0:
+        raise ComputeError("the posterior is zero at every grid point: the data are impossible "
+                           "under the model on this grid (check the data, the supports and the "
+                           "grid bounds)")
+    return _finish(compiled, grid, acc, levels, pairs, best_flat, best_lp, zero, logp_all,
+                   time.perf_counter() - t0)
+
+
+def _point_text(where: dict[str, float]) -> str:
+    return ", ".join(f"{k} = {v:.6g}" for k, v in where.items())
+
+
+def _finish(compiled, grid, acc, levels, pairs, best_flat, best_lp, zero, logp_all, seconds):
+    d = len(grid.axes)
+    log_mass = tuple(float(math.log(z) + acc.M) if z > 0 else -math.inf for z in acc.Z)
+    marg = {a.name: Marginal(a, acc.marg[k][0]) for k, a in enumerate(grid.axes)}
+    coarse = []
+    for lev in range(levels):
+        cm = {}
+        for k, a in enumerate(grid.axes):
+            keep = np.isfinite(a.coarse[lev]) if not a.discrete else np.ones(a.n, bool)
+            w = np.exp(a.coarse[lev] - a.logjac)
+            try:
+                cm[a.name] = Marginal(a, acc.marg[k][lev + 1], keep, weights=w)
+            except ComputeError:
+                cm = None
+                break
+        if cm is None:
+            break
+        coarse.append(cm)
+    moments = []
+    for lev in range(levels + 1):
+        z = acc.Z[lev]
+        if z <= 0:
+            moments.append((np.full(d, np.nan), np.full((d, d), np.nan)))
+            continue
+        m1 = acc.S1[lev] / z
+        cov = acc.S2[lev] / z - np.outer(m1, m1)
+        moments.append((m1 + acc.centre, cov))
+    # the evidence: only for a proper prior
+    log_ev = None
+    prior_norm = 0.0
+    if compiled.proper:
+        if compiled.free_prior:
+            prior_norm = prior_normaliser(compiled)
+        order = min((a.order for a in grid.axes if not a.discrete), default=2)
+        exact = all(a.discrete for a in grid.axes)
+        lm = [v - prior_norm for v in log_mass]
+        log_ev = combine(lm[0], lm[1] if len(lm) > 1 else None,
+                         lm[2] if len(lm) > 2 else None, order=order, exact=exact)
+    edge = {}
+    per_sd = math.inf
+    for k, a in enumerate(grid.axes):
+        if a.discrete:
+            continue
+        m = marg[a.name]
+        edge[a.name] = (_edge_mass(m.mass[0], m.mass[1] if a.n > 1 else 0.0),
+                        _edge_mass(m.mass[-1], m.mass[-2] if a.n > 1 else 0.0))
+        sd = m.sd
+        if sd > 0 and a.n > 1:
+            h = np.median(a.spacing())
+            per_sd = min(per_sd, sd / h if h > 0 else math.inf)
+    diag = Diagnostics(zero, edge, per_sd)
+    return Posterior(grid, compiled, log_mass, log_ev, marg, tuple(coarse), moments[0][0],
+                     moments[0][1], tuple(moments[1:len(coarse) + 1]), dict(acc.pairs),
+                     grid.point(best_flat), best_lp, diag, seconds, logp_all, prior_norm)
+
+
+def prior_normaliser(compiled: Compiled, points: int = 201) -> float:
+    """``log`` of the integral of the prior over the whole (bounded) domain.
+
+    Used when free ``prior log`` terms make the prior's normalising constant
+    unknown. Continuous parameters use Gauss-Legendre on their full domain;
+    discrete ones are summed.
+    """
+    from .grid import make_axis
+    axes = []
+    for p in compiled.params:
+        if p.discrete:
+            axes.append(make_axis(p, p.lo, p.hi))
+        else:
+            axes.append(make_axis(p, p.lo, p.hi, points, rule="gauss", scale="linear"))
+    grid = Grid(tuple(axes))
+    if grid.size > 50_000_000:
+        raise ComputeError("the free `prior log` terms cannot be normalised: the parameters' "
+                           "domains are too large to integrate over")
+    total_m = -np.inf
+    acc = 0.0
+    for start, stop in grid.blocks(BLOCK):
+        idx = grid.indices(start, stop)
+        theta = _block_theta(grid, idx)
+        with np.errstate(all="ignore"):
+            lp = compiled.log_prior(theta)
+        for a, i in zip(grid.axes, idx):
+            lp = lp + a.logw[i]
+        lp[np.isnan(lp)] = -np.inf
+        m = float(np.max(lp))
+        if not np.isfinite(m):
+            continue
+        if m > total_m:
+            acc = acc * math.exp(total_m - m) if np.isfinite(total_m) else 0.0
+            total_m = m
+        acc += float(np.exp(lp - total_m).sum())
+    if acc <= 0:
+        raise ComputeError("the prior is zero everywhere on its domain")
+    return math.log(acc) + total_m
+
+
+def _edge_mass(end: float, inner: float) -> float:
+    """Mass of the outer node plus the tail beyond it, extrapolated from the
+    decay between the last two nodes (geometric: ``end * r / (1 - r)``)."""
+    end, inner = float(end), float(inner)
+    if end <= 0:
+        return 0.0
+    if inner <= end:
+        return 2.0 * end + (inner == 0) * end  # no decay toward the edge: the tail is not small
+    r = end / inner
+    return end + end * r / (1.0 - r)

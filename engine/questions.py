@@ -1,0 +1,429 @@
+"""Questions asked of a computed posterior.
+
+Probabilities of conditions, expectations, sds and quantiles of any expression of
+the parameters and lets, the distribution of a derived quantity, and the joint
+mode. Each answer carries an error estimate from the nested coarse grids.
+
+A condition's indicator jumps inside grid cells; counting whole cells would give
+an error of the order of the spacing. Instead each node's cell is taken as a box
+over which the compared quantity is linear (its gradient is found symbolically),
+and the node contributes the fraction of its box where the condition holds. A
+condition on a single continuous parameter uses that parameter's marginal cdf.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Iterator, Sequence
+
+import numpy as np
+import sympy as sp
+from scipy import optimize
+
+from .errors import ComputeError, ModelError
+from .model import ParamFunction, expand_lets, param_function
+from .posterior import BLOCK, Estimate, Posterior, _block_theta, combine, evaluate_block
+
+
+# ---------------------------------------------------------------------------
+# walking a computed posterior
+
+def walk(post: Posterior, *, block: int = BLOCK) -> Iterator[tuple[tuple, list, list]]:
+    """Blocks of ``(idx, theta, weights)``; ``weights[k]`` are the normalised
+    weights of level k (0 the fine grid), zero where a coarse level has no node."""
+    grid = post.grid
+    levels = len(post.coarse_marginals)
+    for start, stop in grid.blocks(block):
+        idx = grid.indices(start, stop)
+        theta = _block_theta(grid, idx)
+        if post.logp is not None:
+            lp = post.logp[start:stop]
+        else:
+            lp = evaluate_block(post.compiled, theta)
+            lp[np.isnan(lp)] = -np.inf
+        lw = np.zeros(stop - start)
+        for a, i in zip(grid.axes, idx):
+            lw += a.logw[i]
+        ws = [np.exp(lp + lw - post.log_mass[0])]
+        for lev in range(levels):
+            lwc = np.zeros(stop - start)
+            for a, i in zip(grid.axes, idx):
+                lwc += a.coarse[lev][i]
+            with np.errstate(invalid="ignore"):
+                ws.append(np.where(np.isfinite(lwc), np.exp(lp + lwc - post.log_mass[lev + 1]), 0.0))
+        yield idx, theta, ws
+
+
+def _compile(post: Posterior, expr: sp.Basic) -> tuple[sp.Basic, ParamFunction]:
+    e = expand_lets(expr, post.compiled.model)
+    names = {p.name for p in post.compiled.params}
+    bad = {s.name for s in e.free_symbols} - names
+    if bad:
+        raise ModelError(f"`{sorted(bad)[0]}` is a data column; a question is about "
+                         "parameters and lets")
+    return e, param_function(e, post.compiled.params)
+
+
+def _levels_estimate(post: Posterior, vals: Sequence[float]) -> Estimate:
+    exact = all(a.discrete for a in post.grid.axes)
+    order = min((a.order for a in post.grid.axes if not a.discrete), default=2)
+    return combine(vals[0], vals[1] if len(vals) > 1 else None,
+                   vals[2] if len(vals) > 2 else None, order=order, exact=exact)
+
+
+# ---------------------------------------------------------------------------
+# expectations
+
+@dataclass(frozen=True)
+class Moments:
+    """Mean and sd of an expression under the posterior."""
+
+    mean: Estimate
+    sd: Estimate
+
+
+def moments(post: Posterior, expr: sp.Expr) -> Moments:
+    """Posterior mean and sd of `expr` (parameters and lets)."""
+    e, fn = _compile(post, expr)
+    if isinstance(e, sp.Symbol):
+        return Moments(post.param_mean(e.name), post.param_sd(e.name))
+    L = post.levels + 1
+    s0 = np.zeros(L)
+    s1 = np.zeros(L)
+    s2 = np.zeros(L)
+    shift = None
+    for idx, theta, ws in walk(post):
+        v = fn(theta)
+        live = ws[0] > 0
+        if np.any(~np.isfinite(v[live])):
+            k = int(np.flatnonzero(live & ~np.isfinite(v))[0])
+            where = ", ".join(f"{a.name} = {t[k]:.6g}" for a, t in zip(post.grid.axes, theta))
+            raise ComputeError(f"the expression is not a finite number at {where}, where the "
+                               "posterior is not zero")
+        if shift is None:
+            shift = float(np.sum(v * ws[0]) / max(np.sum(ws[0]), 1e-300))
+        d = np.where(np.isfinite(v), v - shift, 0.0)
+        for k, w in enumerate(ws):
+            s0[k] += w.sum()
+            s1[k] += np.dot(w, d)
+            s2[k] += np.dot(w, d * d)
+    means = [float(shift + s1[k] / s0[k]) for k in range(L)]
+    sds = [float(math.sqrt(max(s2[k] / s0[k] - (s1[k] / s0[k]) ** 2, 0.0))) for k in range(L)]
+    return Moments(_levels_estimate(post, means), _levels_estimate(post, sds))
+
+
+# ---------------------------------------------------------------------------
+# probabilities
+
+@dataclass(frozen=True)
+class _Rel:
+    s: ParamFunction            # lhs - rhs
+    grads: tuple[ParamFunction | None, ...]  # d s / d theta_d (None: discrete or zero)
+    op: str                     # "gt", "ge", "lt", "le", "eq", "ne"
+
+
+_OPS = {sp.StrictGreaterThan: "gt", sp.GreaterThan: "ge", sp.StrictLessThan: "lt",
+        sp.LessThan: "le", sp.Equality: "eq", sp.Unequality: "ne"}
+
+
+def _relations(cond: sp.Basic, post: Posterior):
+    """Compile every relational of `cond` (with gradients) and the boolean skeleton."""
+    params = post.compiled.params
+    rels: list[_Rel] = []
+
+    def build(c):
+        if c is sp.true or c == sp.true:
+            return ("const", True)
+        if c is sp.false or c == sp.false:
+            return ("const", False)
+        if isinstance(c, sp.And):
+            return ("and", [build(a) for a in c.args])
+        if isinstance(c, sp.Or):
+            return ("or", [build(a) for a in c.args])
+        if isinstance(c, sp.Not):
+            return ("not", build(c.args[0]))
+        if type(c) in _OPS:
+            s = c.lhs - c.rhs
+            op = _OPS[type(c)]
+            if op in ("eq", "ne"):
+                cont = [p.name for p in params if not p.discrete and p.symbol in s.free_symbols]
+                if cont:
+                    raise ComputeError(f"`==` and `!=` on continuous `{cont[0]}` have "
+                                       "probability 0 and 1; compare with < or > instead")
+            grads = []
+            for p in params:
+                if p.discrete or p.symbol not in s.free_symbols:
+                    grads.append(None)
+                    continue
+                try:
+                    g = sp.diff(s, p.symbol)
+                    if g.has(sp.Derivative):
+                        raise ValueError
+                    grads.append(param_function(g, params))
+                except (ValueError, TypeError, NotImplementedError):
+                    grads.append(None)
+            rels.append(_Rel(param_function(s, params), tuple(grads), op))
+            return ("rel", len(rels) - 1)
+        raise ComputeError(f"`{c}` is not a condition quadrat can judge")
+
+    return build(cond), rels
+
+
+def _fraction(rel: _Rel, theta, half: list[np.ndarray]) -> np.ndarray:
+    s = rel.s(theta)
+    delta = np.zeros_like(s)
+    for g, h in zip(rel.grads, half):
+        if g is not None:
+            delta += np.abs(g(theta)) * h
+    with np.errstate(all="ignore"):
+        # fraction of the node's box where s > 0, s linear over the box
+        ramp = np.clip((s + delta) / (2 * delta), 0.0, 1.0)
+    hard_gt = (s > 0).astype(float)
+    hard_ge = (s >= 0).astype(float)
+    smooth = delta > 0
+    if rel.op in ("gt", "ge"):
+        return np.where(smooth, ramp, hard_gt if rel.op == "gt" else hard_ge)
+    if rel.op in ("lt", "le"):
+        return np.where(smooth, 1.0 - ramp, 1.0 - (hard_ge if rel.op == "lt" else hard_gt))
+    eq = (s == 0).astype(float)
+    return eq if rel.op == "eq" else 1.0 - eq
+
+
+def _judge(tree, fr: list[np.ndarray], n: int) -> np.ndarray:
+    kind = tree[0]
+    if kind == "const":
+        return np.full(n, 1.0 if tree[1] else 0.0)
+    if kind == "rel":
+        return fr[tree[1]]
+    if kind == "not":
+        return 1.0 - _judge(tree[1], fr, n)
+    parts = [_judge(t, fr, n) for t in tree[1]]
+    out = parts[0]
+    for p in parts[1:]:
+        out = out * p if kind == "and" else out + p - out * p
+    return out
+
+
+def _single_param(cond: sp.Basic, post: Posterior):
+    """``param OP number`` for a continuous parameter: (name, op, value) or None."""
+    if type(cond) not in _OPS or _OPS[type(cond)] in ("eq", "ne"):
+        return None
+    lhs, rhs, op = cond.lhs, cond.rhs, _OPS[type(cond)]
+    flip = {"gt": "lt", "ge": "le", "lt": "gt", "le": "ge"}
+    if isinstance(rhs, sp.Symbol) and lhs.is_number:
+        lhs, rhs, op = rhs, lhs, flip[op]
+    if not (isinstance(lhs, sp.Symbol) and rhs.is_number):
+        return None
+    for p in post.compiled.params:
+        if p.symbol == lhs and not p.discrete:
+            return p.name, op, float(rhs)
+    return None
+
+
+def probability(post: Posterior, cond: sp.Basic) -> Estimate:
+    """Posterior probability of condition `cond` (parameters and lets)."""
+    e = expand_lets(cond, post.compiled.model)
+    names = {p.name for p in post.compiled.params}
+    bad = {s.name for s in e.free_symbols} - names
+    if bad:
+        raise ModelError(f"`{sorted(bad)[0]}` is a data column; a question is about "
+                         "parameters and lets")
+    single = _single_param(e, post)
+    if single is not None:
+        name, op, x = single
+        vals = []
+        for m in post._levels_of(name):
+            c = m.cdf(x)
+            vals.append(c if op in ("lt", "le") else 1.0 - c)
+        return _levels_estimate(post, vals)
+    tree, rels = _relations(e, post)
+    L = post.levels + 1
+    tot = np.zeros(L)
+    norm = np.zeros(L)
+    halves = []
+    for lev in range(L):
+        halves.append([a.spacing() * (a.nest ** lev) / 2 for a in post.grid.axes])
+    for idx, theta, ws in walk(post):
+        for lev in range(L):
+            half = [h[i] for h, i in zip(halves[lev], idx)]
+            fr = [_fraction(r, theta, half) for r in rels]
+            ind = _judge(tree, fr, len(theta[0]))
+            tot[lev] += np.dot(ws[lev], ind)
+            norm[lev] += ws[lev].sum()
+    vals = [float(np.clip(tot[k] / norm[k], 0.0, 1.0)) for k in range(L)]
+    return _levels_estimate(post, vals)
+
+
+# ---------------------------------------------------------------------------
+# quantiles and distributions of derived quantities
+
+def quantile(post: Posterior, expr: sp.Expr, q: float) -> Estimate:
+    """The q-quantile of `expr` under the posterior."""
+    if not 0 < q < 1:
+        raise ComputeError(f"quantile level must be between 0 and 1 (exclusive); got {q:g}")
+    e, fn = _compile(post, expr)
+    if isinstance(e, sp.Symbol):
+        return post.quantile(e.name, q)
+    # a first guess from the weighted values, then solve P(expr <= x) = q
+    vals, wts = [], []
+    for idx, theta, ws in walk(post):
+        v = fn(theta)
+        keep = ws[0] > 0
+        vals.append(v[keep])
+        wts.append(ws[0][keep])
+    v = np.concatenate(vals)
+    w = np.concatenate(wts)
+    order = np.argsort(v, kind="stable")
+    c = np.cumsum(w[order])
+    c /= c[-1]
+    lo_i = int(np.searchsorted(c, max(q - 0.05, 0.0)))
+    hi_i = int(np.searchsorted(c, min(q + 0.05, 1.0)))
+    a = float(v[order[max(lo_i - 1, 0)]])
+    b = float(v[order[min(hi_i + 1, len(v) - 1)]])
+    if all(ax.discrete for ax in post.grid.axes):
+        x = float(v[order[min(int(np.searchsorted(c, q - 1e-12)), len(v) - 1)]])
+        return Estimate(x, 0.0, "exact")
+    out = []
+    for lev in range(post.levels + 1):
+        def f(x, lev=lev):
+            return _prob_le(post, e, x, lev) - q
+        lo, hi = a, b
+        span = max(abs(hi - lo), 1e-12 * max(1.0, abs(lo)))
+        for _ in range(60):
+            if f(lo) <= 0:
+                break
+            lo -= span
+            span *= 2
+        span = max(abs(hi - lo), 1e-12)
+        for _ in range(60):
+            if f(hi) >= 0:
+                break
+            hi += span
+            span *= 2
+        try:
+            out.append(optimize.brentq(f, lo, hi, xtol=1e-13 * max(1.0, abs(lo) + abs(hi)),
+                                       rtol=1e-13, maxiter=200))
+        except ValueError:
+            out.append(None)
+    if out[0] is None:
+        raise ComputeError("could not solve for the quantile")
+    return _levels_estimate(post, out)
+
+
+def _prob_le(post: Posterior, e: sp.Expr, x: float, lev: int) -> float:
+    tree, rels = _relations(sp.Le(e, x), post)
+    half_axes = [a.spacing() * (a.nest ** lev) / 2 for a in post.grid.axes]
+    tot = norm = 0.0
+    for idx, theta, ws in walk(post):
+        half = [h[i] for h, i in zip(half_axes, idx)]
+        ind = _fraction(rels[0], theta, half)
+        tot += float(np.dot(ws[lev], ind))
+        norm += float(ws[lev].sum())
+    return tot / norm
+
+
+@dataclass(frozen=True)
+class Distribution:
+    """The posterior distribution of a derived quantity.
+
+    Attributes
+    ----------
+    mean, sd : Estimate
+    quantiles : dict of float to Estimate
+        At 2.5%, 50% and 97.5%.
+    edges : ndarray, shape (bins + 1,)
+    density : ndarray, shape (bins,)
+        A histogram of the posterior density, for plotting.
+    """
+
+    mean: Estimate
+    sd: Estimate
+    quantiles: dict[float, Estimate]
+    edges: np.ndarray
+    density: np.ndarray
+
+
+def distribution(post: Posterior, expr: sp.Expr, *, bins: int = 60) -> Distribution:
+    """Mean, sd, quantiles and a density histogram of `expr`."""
+    mo = moments(post, expr)
+    qs = {q: quantile(post, expr, q) for q in (0.025, 0.5, 0.975)}
+    e, fn = _compile(post, expr)
+    lo = qs[0.025].value - 2 * mo.sd.value
+    hi = qs[0.975].value + 2 * mo.sd.value
+    if not hi > lo:
+        hi = lo + 1.0
+    edges = np.linspace(lo, hi, bins + 1)
+    hist = np.zeros(bins)
+    for idx, theta, ws in walk(post):
+        v = fn(theta)
+        h, _ = np.histogram(v, bins=edges, weights=ws[0])
+        hist += h
+    dens = hist / np.diff(edges)
+    return Distribution(mo.mean, mo.sd, qs, edges, dens)
+
+
+# ---------------------------------------------------------------------------
+# the joint mode
+
+@dataclass(frozen=True)
+class Mode:
+    """The joint posterior mode (density in the parameters' own units).
+
+    Attributes
+    ----------
+    values : dict of str to float
+    log_density : float
+        Unnormalised log posterior there.
+    converged : bool
+    message : str
+    """
+
+    values: dict[str, float]
+    log_density: float
+    converged: bool
+    message: str
+
+
+def mode(post: Posterior) -> Mode:
+    """The grid's best point, polished by an optimiser over the continuous parameters."""
+    params = post.compiled.params
+    best = dict(post.best)
+    cont = [i for i, p in enumerate(params) if not p.discrete]
+    if not cont:
+        return Mode(best, post.best_logp, True, "best grid point (all parameters discrete)")
+    x0 = np.array([best[params[i].name] for i in cont])
+    fixed = [best[p.name] for p in params]
+
+    def f(x):
+        th = list(fixed)
+        for k, i in enumerate(cont):
+            th[i] = x[k]
+        lp = evaluate_block(post.compiled, [np.array([v], float) for v in th])[0]
+        return -lp if np.isfinite(lp) else 1e300
+
+    bounds = [(params[i].lo if math.isfinite(params[i].lo) else None,
+               params[i].hi if math.isfinite(params[i].hi) else None) for i in cont]
+    scale = np.array([max(post.marginals[params[i].name].sd, 1e-12) for i in cont])
+    res = optimize.minimize(lambda z: f(x0 + z * scale), np.zeros(len(cont)), method="Nelder-Mead",
+                            options={"xatol": 1e-10, "fatol": 1e-13, "maxiter": 4000 * len(cont)})
+    z = res.x
+    res2 = optimize.minimize(lambda z: f(x0 + z * scale), z, method="L-BFGS-B",
+                             bounds=[((lo - x0[k]) / scale[k] if lo is not None else None,
+                                      (hi - x0[k]) / scale[k] if hi is not None else None)
+                                     for k, (lo, hi) in enumerate(bounds)],
+                             options={"ftol": 1e-15, "gtol": 1e-10})
+    agree = bool(np.all(np.abs(res2.x - res.x) < 1e-5))
+    if res2.fun <= res.fun:
+        z, fun = res2.x, res2.fun
+    else:
+        z, fun = res.x, res.fun
+    ok = bool(res.success or res2.success or agree)
+    x = x0 + z * scale
+    if fun > -post.best_logp:
+        return Mode(best, post.best_logp, False, "the optimiser did not improve on the best grid point")
+    out = dict(best)
+    for k, i in enumerate(cont):
+        out[params[i].name] = float(x[k])
+    return Mode(out, float(-fun), ok, "polished from the best grid point" if ok else
+                "the optimiser stopped before converging; the values are its best")

@@ -1,0 +1,447 @@
+"""Automatic bounds, refinement steps and convergence verdicts.
+
+`auto_grid` finds where the posterior mass is: the joint mode(s) in the
+unconstrained space of the axes (several starts), the curvature there, a box of
+safe width around every mode, then a check of the mass in the outer cells of
+every axis on a coarse pass, widening until it is below a threshold.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Sequence
+
+import numpy as np
+import scipy.special as sc
+from scipy import optimize
+
+from .errors import ComputeError, GridError
+from .grid import Axis, Grid, default_scale, make_axis
+from .model import Compiled, Param
+from .posterior import Posterior, compute, evaluate_block
+
+#: Mass allowed in the outer cell at each end of an axis.
+EDGE_MASS = 1e-9
+#: Largest number of points of the coarse checking pass.
+CHECK_POINTS = 200_000
+#: Largest number of points `grid auto` gives a grid.
+AUTO_BUDGET = 1 << 22
+#: Nodes per curvature sd that `grid auto` aims for on every continuous axis.
+PER_SD = 6.0
+#: How far the log / logit scales may reach: beyond these, values round to the
+#: domain's edge in double precision (1 - 1e-16 == 1).
+U_LIMITS = {"log": (-700.0, 700.0), "logit": (-700.0, 36.0), "linear": (-math.inf, math.inf)}
+
+
+@dataclass(frozen=True)
+class AxisSpec:
+    """What the user (or `grid auto`) asked of one axis."""
+
+    name: str
+    lo: float
+    hi: float
+    n: int | None = None
+    scale: str | None = None
+
+
+@dataclass(frozen=True)
+class AutoGrid:
+    """The result of `auto_grid`.
+
+    Attributes
+    ----------
+    specs : tuple of AxisSpec
+    modes : tuple of dict
+        The separated local modes found (parameter values).
+    edge_mass : dict of str to (float, float)
+        Mass in the outer cells on the final check.
+    converged : bool
+        Whether every edge holds less than `EDGE_MASS` (or sits on a domain edge).
+    improper : tuple of str
+        Axes whose edge mass kept up as the bounds widened.
+    message : str
+    """
+
+    specs: tuple[AxisSpec, ...]
+    modes: tuple[dict[str, float], ...]
+    edge_mass: dict[str, tuple[float, float]]
+    converged: bool
+    improper: tuple[str, ...] = ()
+    message: str = ""
+    widenings: int = 0
+
+
+def default_points(dims: int) -> int:
+    """Points per continuous axis that `grid auto` picks for `dims` parameters."""
+    return {1: 201, 2: 201, 3: 101, 4: 41, 5: 21, 6: 13, 7: 9}.get(dims, 5)
+
+
+# -- unconstrained coordinates -------------------------------------------------
+
+def _scale_for(p: Param) -> str:
+    if p.kind == "positive":
+        return "log"
+    if p.kind in ("unit", "interval"):
+        return "logit"
+    return "linear"
+
+
+def _to_value(u, p: Param, scale: str):
+    if scale == "log":
+        return p.lo + np.exp(u)
+    if scale == "logit":
+        return p.lo + (p.hi - p.lo) * sc.expit(u)
+    return u
+
+
+def _to_u(v, p: Param, scale: str):
+    with np.errstate(all="ignore"):
+        if scale == "log":
+            return np.log(v - p.lo)
+        if scale == "logit":
+            return sc.logit((v - p.lo) / (p.hi - p.lo))
+    return v
+
+
+def _logjac(u, scale: str, p: Param):
+    if scale == "log":
+        return u
+    if scale == "logit":
+        return math.log(p.hi - p.lo) + sc.log_expit(u) + sc.log_expit(-u)
+    return np.zeros_like(u)
+
+
+class _Target:
+    """The log posterior in unconstrained coordinates (Jacobian included)."""
+
+    def __init__(self, compiled: Compiled, fixed: dict[str, float]):
+        self.c = compiled
+        self.cont = [p for p in compiled.params if not p.discrete]
+        self.scales = [_scale_for(p) for p in self.cont]
+        self.fixed = fixed
+
+    def theta(self, U: np.ndarray) -> list[np.ndarray]:
+        U = np.atleast_2d(U)
+        out = []
+        k = 0
+        for p in self.c.params:
+            if p.discrete:
+                out.append(np.full(U.shape[0], self.fixed[p.name]))
+            else:
+                out.append(np.asarray(_to_value(U[:, k], p, self.scales[k]), float))
+                k += 1
+        return out
+
+    def __call__(self, U: np.ndarray) -> np.ndarray:
+        U = np.atleast_2d(U)
+        lp = evaluate_block(self.c, self.theta(U))
+        for k, p in enumerate(self.cont):
+            lp = lp + _logjac(U[:, k], self.scales[k], p)
+        return np.where(np.isnan(lp), -np.inf, lp)
+
+
+def _starts(target: _Target, rng: np.random.Generator, count: int) -> np.ndarray:
+    """Starting points: the origin, and points spread over the unconstrained space,
+    ranked by their log density."""
+    d = len(target.cont)
+    cands = [np.zeros(d)]
+    for scale in (1.0, 3.0, 10.0, 30.0):
+        cands.extend(rng.normal(0.0, scale, size=(64, d)))
+    C = np.array(cands)
+    # centre linear axes of bounded parameters inside their domain
+    lp = target(C)
+    order = [i for i in np.argsort(-lp) if np.isfinite(lp[i])]
+    # the best point, then the best ones far from those already chosen, so that
+    # separated modes each get a start
+    good: list[np.ndarray] = []
+    for sep in (2.0, 0.5, 0.0):
+        for i in order:
+            if len(good) >= count:
+                break
+            if all(np.linalg.norm(C[i] - g) > sep for g in good):
+                good.append(C[i])
+    if not good:
+        raise ComputeError("the posterior is zero at every starting point tried; check the "
+                           "data and the supports")
+    return np.array(good)
+
+
+def _hessian(f, x: np.ndarray, h: np.ndarray) -> np.ndarray:
+    d = len(x)
+    H = np.zeros((d, d))
+    f0 = f(x[None, :])[0]
+    E = np.eye(d)
+    pts = []
+    for i in range(d):
+        pts.append(x + h[i] * E[i])
+        pts.append(x - h[i] * E[i])
+    for i in range(d):
+        for j in range(i + 1, d):
+            for si, sj in ((1, 1), (1, -1), (-1, 1), (-1, -1)):
+                pts.append(x + si * h[i] * E[i] + sj * h[j] * E[j])
+    vals = f(np.array(pts))
+    k = 0
+    for i in range(d):
+        H[i, i] = (vals[k] - 2 * f0 + vals[k + 1]) / h[i] ** 2
+        k += 2
+    for i in range(d):
+        for j in range(i + 1, d):
+            a, b, c, e = vals[k:k + 4]
+            H[i, j] = H[j, i] = (a - b - c + e) / (4 * h[i] * h[j])
+            k += 4
+    return H
+
+
+def find_modes(compiled: Compiled, fixed: dict[str, float], *, starts: int = 8,
+               seed: int = 0) -> list[tuple[np.ndarray, float, np.ndarray]]:
+    """Local modes of the posterior in unconstrained coordinates.
+
+    Returns a list of ``(u, log density, sd)`` with `sd` the per-axis standard
+    deviation from the curvature there, best first; modes closer than two sds
+    to a better one are merged into it.
+    """
+    target = _Target(compiled, fixed)
+    d = len(target.cont)
+    if d == 0:
+        return []
+    rng = np.random.default_rng(seed)
+    found = []
+    for x0 in _starts(target, rng, starts):
+        def nf(x):
+            v = target(x[None, :])[0]
+            return -v if np.isfinite(v) else 1e300
+        r = optimize.minimize(nf, x0, method="Nelder-Mead",
+                              options={"xatol": 1e-7, "fatol": 1e-10, "maxiter": 2000 * d,
+                                       "adaptive": d > 2})
+        r2 = optimize.minimize(nf, r.x, method="BFGS", options={"gtol": 1e-8})
+        x = r2.x if r2.fun <= r.fun and np.all(np.isfinite(r2.x)) else r.x
+        fx = -min(r.fun, r2.fun)
+        if not np.isfinite(fx) or fx < -1e299:
+            continue
+        sd = _curvature_sd(target, x)
+        found.append((x, fx, sd))
+    if not found:
+        raise ComputeError("no mode found: the posterior is zero at every point the optimiser "
+                           "reached")
+    found.sort(key=lambda t: -t[1])
+    modes = []
+    for x, fx, sd in found:
+        if fx < found[0][1] - 40:   # below exp(-40) of the best: no mass worth a box
+            continue
+        if any(np.all(np.abs(x - m[0]) < 2 * np.maximum(sd, m[2])) for m in modes):
+            continue
+        modes.append((x, fx, sd))
+    return modes
+
+
+def _curvature_sd(target: _Target, x: np.ndarray) -> np.ndarray:
+    d = len(x)
+    h = np.full(d, 1e-3)
+    sd = np.ones(d)
+    for _ in range(3):
+        H = _hessian(target, x, h)
+        try:
+            cov = np.linalg.inv(-H)
+            diag = np.diag(cov)
+            ok = np.all(np.isfinite(diag)) and np.all(diag > 0)
+        except np.linalg.LinAlgError:
+            ok = False
+        if not ok:
+            diag = np.array([1.0 / max(-H[i, i], 1e-12) if np.isfinite(H[i, i]) and H[i, i] < 0
+                             else 1.0 for i in range(d)])
+        sd = np.sqrt(diag)
+        h_new = np.clip(sd * 1e-2, 1e-6, 1.0)
+        if np.allclose(h_new, h, rtol=0.5):
+            break
+        h = h_new
+    return sd
+
+
+def auto_grid(compiled: Compiled, *, points: dict[str, int] | None = None,
+              width: float = 8.0, edge_mass: float = EDGE_MASS,
+              max_widen: int = 40) -> AutoGrid:
+    """Bounds for every axis that hold all but `edge_mass` at each edge.
+
+    Parameters
+    ----------
+    compiled : Compiled
+    points : dict of str to int, keyword-only
+        Points per axis for the result (default: the parameter's own `points`,
+        else `default_points`).
+    width : float, keyword-only
+        Half-width of the first box around each mode, in curvature sds.
+    edge_mass : float, keyword-only
+        The most mass the outer cell at each end may hold.
+    max_widen : int, keyword-only
+        The most widening passes.
+    """
+    params = compiled.params
+    disc = [p for p in params if p.discrete]
+    cont = [p for p in params if not p.discrete]
+    dims = len(params)
+    npts = default_points(max(len(cont), 1))
+    # discrete parameters: fix them at the best value of a coarse look for the mode search
+    fixed = {}
+    if disc:
+        fixed = _best_discrete(compiled, disc, cont)
+    modes = find_modes(compiled, fixed) if cont else []
+    lo_u = {}
+    hi_u = {}
+    scales = {p.name: _scale_for(p) for p in cont}
+    sd_u = {}
+    for k, p in enumerate(cont):
+        los = [m[0][k] - width * m[2][k] for m in modes]
+        his = [m[0][k] + width * m[2][k] for m in modes]
+        ulo, uhi = U_LIMITS[scales[p.name]]
+        lo_u[p.name], hi_u[p.name] = max(min(los), ulo), min(max(his), uhi)
+        sd_u[p.name] = min(m[2][k] for m in modes)
+
+    def specs_from(n_each=None):
+        out = []
+        for p in params:
+            if p.discrete:
+                out.append(AxisSpec(p.name, p.lo, p.hi, None, None))
+                continue
+            sc_ = scales[p.name]
+            lo = float(_to_value(np.array(lo_u[p.name]), p, sc_))
+            hi = float(_to_value(np.array(hi_u[p.name]), p, sc_))
+            lo, hi = max(lo, p.lo), min(hi, p.hi)
+            if sc_ == "linear" and p.bounded:
+                lo, hi = max(lo, p.lo), min(hi, p.hi)
+            n = n_each or (points or {}).get(p.name) or p.points or sized.get(p.name, npts)
+            out.append(AxisSpec(p.name, lo, hi, n, _fit_scale(p, lo, hi, sc_)))
+        return tuple(out)
+
+    sized: dict[str, int] = {}
+    check_n = max(5, min(41, int(round(CHECK_POINTS ** (1 / max(len(cont), 1))))))
+    if check_n % 2 == 0:
+        check_n += 1
+    grow = {p.name: [0, 0] for p in cont}
+    history: dict[str, list[tuple[float, float]]] = {p.name: [] for p in cont}
+    edge = {}
+    widenings = 0
+    improper: list[str] = []
+    converged = True
+    for it in range(max_widen + 1):
+        specs = specs_from(check_n)
+        grid = build_grid(params, specs)
+        post = compute(compiled, grid, pairs=[], store=False)
+        edge = post.diagnostics.edge_mass
+        again = False
+        for p in cont:
+            a = grid.axis(p.name)
+            m_lo, m_hi = edge[p.name]
+            history[p.name].append((m_lo, m_hi))
+            span = hi_u[p.name] - lo_u[p.name]
+            at_lo = a.scale == "linear" and a.lo <= p.lo
+            at_hi = a.scale == "linear" and a.hi >= p.hi
+            ulo, uhi = U_LIMITS[scales[p.name]]
+            if m_lo > edge_mass and not at_lo and lo_u[p.name] > ulo:
+                lo_u[p.name] = max(lo_u[p.name] - 0.5 * span, ulo)
+                grow[p.name][0] += 1
+                again = True
+            if m_hi > edge_mass and not at_hi and hi_u[p.name] < uhi:
+                hi_u[p.name] = min(hi_u[p.name] + 0.5 * span, uhi)
+                grow[p.name][1] += 1
+                again = True
+        if not again:
+            break
+        widenings += 1
+        for p in cont:
+            if max(grow[p.name]) >= 12 and p.name not in improper:
+                improper.append(p.name)
+        if improper and widenings >= 14:
+            converged = False
+            break
+    else:
+        converged = False
+    # points: enough nodes across the narrowest mode, within the budget
+    for p in cont:
+        span = hi_u[p.name] - lo_u[p.name]
+        want = span / (sd_u[p.name] / PER_SD) if sd_u[p.name] > 0 else npts
+        sized[p.name] = npts if p.name in improper else max(npts, int(math.ceil(want)))
+    total = math.prod(sized.values()) * math.prod(len(p.values) for p in disc)
+    if total > AUTO_BUDGET:
+        shrink = (AUTO_BUDGET / total) ** (1 / max(len(cont), 1))
+        for k in sized:
+            sized[k] = max(5, int(sized[k] * shrink))
+    for k in sized:
+        sized[k] = _nested_count(sized[k])
+    specs = specs_from()
+    limited = []
+    for p in cont:
+        lo_lim, hi_lim = U_LIMITS[scales[p.name]]
+        m_lo, m_hi = edge.get(p.name, (0.0, 0.0))
+        if m_hi > edge_mass and hi_u[p.name] >= hi_lim:
+            limited.append(f"the mass beyond the upper end of `{p.name}` stays at {m_hi:.2g}: "
+                           f"values closer to {p.hi:g} are not distinct from it in double precision")
+        if m_lo > edge_mass and lo_u[p.name] <= lo_lim:
+            limited.append(f"the mass beyond the lower end of `{p.name}` stays at {m_lo:.2g}: "
+                           f"values closer to {p.lo:g} are not distinct from it in double precision")
+    mode_vals = []
+    target = _Target(compiled, fixed)
+    for x, fx, sd in modes:
+        th = target.theta(x[None, :])
+        mode_vals.append({p.name: float(t[0]) for p, t in zip(params, th)})
+    msg = "; ".join(limited)
+    if limited:
+        converged = True
+    if improper:
+        msg = ("mass keeps piling at the edge of " + ", ".join(f"`{n}`" for n in improper) +
+               " as the bounds widen: the posterior looks improper")
+    elif not converged:
+        msg = "the edge mass did not fall below the threshold within the widening limit"
+    return AutoGrid(specs, tuple(mode_vals), edge, converged and not improper, tuple(improper),
+                    msg, widenings)
+
+
+def _nested_count(n: int) -> int:
+    """The next count of the form 4k + 1 (two nested coarse levels)."""
+    return max(5, 4 * int(math.ceil((n - 1) / 4)) + 1)
+
+
+def _fit_scale(p: Param, lo: float, hi: float, preferred: str) -> str:
+    if preferred == "log" and lo > p.lo:
+        return "log"
+    if preferred == "logit" and lo > p.lo and hi < p.hi:
+        return "logit"
+    return "linear"
+
+
+def _best_discrete(compiled: Compiled, disc: Sequence[Param], cont: Sequence[Param]
+                   ) -> dict[str, float]:
+    """The discrete values of highest density on a rough look over the continuous ones."""
+    rng = np.random.default_rng(1)
+    vals = [np.asarray(p.values) for p in disc]
+    total = math.prod(len(v) for v in vals)
+    if total <= 2000:
+        grids = np.meshgrid(*vals, indexing="ij")
+        combos = np.column_stack([g.ravel() for g in grids])
+    else:
+        combos = np.column_stack([rng.choice(v, size=2000) for v in vals])
+    best, best_lp = combos[0], -np.inf
+    U = rng.normal(0, 2, size=(64, len(cont))) if cont else np.zeros((1, 0))
+    U[0] = 0.0
+    for row in combos:
+        fixed = {p.name: float(v) for p, v in zip(disc, row)}
+        t = _Target(compiled, fixed)
+        lp = float(np.max(t(U))) if cont else float(
+            evaluate_block(compiled, [np.array([fixed[p.name]]) for p in compiled.params])[0])
+        if lp > best_lp:
+            best, best_lp = row, lp
+    return {p.name: float(v) for p, v in zip(disc, best)}
+
+
+def build_grid(params: Sequence[Param], specs: Sequence[AxisSpec], *, rule: str = "trapezoid"
+               ) -> Grid:
+    """The grid of `specs` (one per parameter, in the model's order)."""
+    by = {s.name: s for s in specs}
+    axes = []
+    for p in params:
+        s = by.get(p.name)
+        if s is None:
+            raise GridError(f"no grid axis for `{p.name}`; use `grid {p.name} LO HI` or `grid auto`")
+        axes.append(make_axis(p, s.lo, s.hi, s.n, rule="trapezoid" if p.discrete else rule,
+                              scale=s.scale))
+    return Grid(tuple(axes))

@@ -1,0 +1,607 @@
+"""The state that commands act on, and the operations on it.
+
+A `Workspace` holds one immutable `State` (model, data, grid, rule, posterior,
+keeps) and a stack of earlier states for `undo`. Every operation either returns
+a result and replaces the state whole, or raises a `QuadratError` and leaves the
+state exactly as it was: nothing is half-changed. The workspace never prints;
+the shell renders what it returns.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+from dataclasses import dataclass, field, replace
+from typing import Callable
+
+import numpy as np
+import sympy as sp
+
+from . import families as fam
+from . import plan, questions
+from .data import DataSet, FileRecord, Table, read_csv, typed_column
+from .errors import ComputeError, FormulaError, GridError, ModelError, QuadratError
+from .expr import check_name, parse, parse_call
+from .grid import Grid, make_axis
+from .model import Compiled, Let, Likelihood, Model, Prior, compile_model, make_param
+from .posterior import Estimate, Interval, Posterior, compute as compute_posterior
+from .refine import AutoGrid, AxisSpec, auto_grid, build_grid
+from .rules import RULES
+
+#: A question recomputes a stale posterior by itself when that is predicted to
+#: take less than this many seconds.
+CHEAP_SECONDS = 2.0
+#: Default budget: `compute` refuses longer jobs unless forced.
+BUDGET_SECONDS = 600.0
+UNDO_DEPTH = 200
+#: Posterior mass at an axis end above which `compute` warns.
+EDGE_WARN = 1e-6
+#: Fewer nodes than this across one posterior sd is called too coarse.
+MIN_POINTS_PER_SD = 5.0
+
+
+# ---------------------------------------------------------------------------
+# results
+
+@dataclass(frozen=True)
+class Change:
+    """What a state-changing command did: one message and any notes."""
+
+    message: str
+    notes: tuple[str, ...] = ()
+
+
+@dataclass(frozen=True)
+class Answer:
+    """The answer to a question.
+
+    Attributes
+    ----------
+    kind : str
+        ``prob``, ``mean``, ``sd``, ``quantile``, ``interval``, ``evidence``,
+        ``mode``.
+    label : str
+        What was asked, in words (for a table row).
+    values : tuple of float
+        The numbers `check` compares, in order.
+    errors : tuple of float or None
+        Their estimated absolute errors.
+    notes : tuple of str
+    detail : object
+        The engine's own result (Interval, Mode, ...), for rendering.
+    """
+
+    kind: str
+    label: str
+    values: tuple[float, ...]
+    errors: tuple[float | None, ...]
+    notes: tuple[str, ...] = ()
+    detail: object = None
+
+
+@dataclass(frozen=True)
+class SummaryRow:
+    name: str
+    mean: Estimate
+    sd: Estimate
+    q025: Estimate
+    q50: Estimate
+    q975: Estimate
+
+
+@dataclass(frozen=True)
+class Summary:
+    rows: tuple[SummaryRow, ...]
+    log_evidence: Estimate | None
+    points: int
+    notes: tuple[str, ...] = ()
+
+
+@dataclass(frozen=True)
+class ComputeReport:
+    """What `compute` did."""
+
+    points: int
+    seconds: float
+    log_evidence: Estimate | None
+    notes: tuple[str, ...]
+    warnings: tuple[str, ...]
+
+
+@dataclass(frozen=True)
+class CostReport:
+    cost: plan.Cost
+    grid: tuple[str, ...]      # one line per axis
+    rule: str
+    auto: bool                 # whether some axes would come from grid auto
+    budget_seconds: float
+
+
+@dataclass(frozen=True)
+class Status:
+    """What the toolbar shows: a pure summary of the state."""
+
+    params: tuple[str, ...]
+    points: int | None
+    posterior: str            # "absent", "current", "out of date"
+    log_evidence: float | None
+    whatif: bool
+
+
+# ---------------------------------------------------------------------------
+# state
+
+@dataclass(frozen=True)
+class State:
+    model: Model = field(default_factory=Model)
+    data: DataSet = field(default_factory=DataSet)
+    specs: tuple[AxisSpec, ...] = ()      # grids the user set
+    auto: tuple[AxisSpec, ...] = ()       # grids `grid auto` found, for the basis below
+    auto_basis: tuple = ()
+    rule: str = "trapezoid"
+    posterior: Posterior | None = None
+    basis: tuple = ()                     # (model, data, grid specs, rule) of the posterior
+    keeps: tuple = ()
+
+    def spec(self, name: str) -> AxisSpec | None:
+        for s in self.specs:
+            if s.name == name:
+                return s
+        return None
+
+
+def _basis(s: State) -> tuple:
+    return (id(s.model), id(s.data), s.specs, s.rule)
+
+
+class Workspace:
+    """The session's state and the operations on it.
+
+    Parameters
+    ----------
+    budget_seconds : float, keyword-only
+        `compute` refuses a job predicted to take longer, unless forced.
+    base_dir : str, keyword-only
+        Relative data-file paths are read from here (default: the current folder).
+    """
+
+    def __init__(self, *, budget_seconds: float = BUDGET_SECONDS, base_dir: str | None = None):
+        self.state = State()
+        self.undo_stack: list[State] = []
+        self.budget_seconds = budget_seconds
+        self.base_dir = base_dir
+        self._compiled_cache: tuple | None = None
+
+    # -- bookkeeping ---------------------------------------------------------
+    def _commit(self, new: State) -> None:
+        self.undo_stack.append(self.state)
+        if len(self.undo_stack) > UNDO_DEPTH:
+            del self.undo_stack[0]
+        self.state = new
+
+    def _names(self) -> dict[str, sp.Symbol]:
+        return self.state.model.symbols(self.state.data)
+
+    def status(self) -> Status:
+        s = self.state
+        post = s.posterior
+        if post is None:
+            st = "absent"
+        elif s.basis == _basis(s):
+            st = "current"
+        else:
+            st = "out of date"
+        ev = post.log_evidence.value if post is not None and post.log_evidence else None
+        return Status(s.model.param_names, post.grid.size if post else None, st, ev, False)
+
+    # -- declarations ----------------------------------------------------------
+    def param(self, name: str, kind: str, *, lo: float | None = None, hi: float | None = None,
+              values=None, points: int | None = None) -> Change:
+        p = make_param(name, kind, lo=lo, hi=hi, values=values, points=points)
+        s = self.state
+        model, replaced = s.model.with_param(p, s.data)
+        specs = s.specs
+        notes = []
+        if replaced:
+            old = s.spec(name)
+            if old is not None:
+                specs = tuple(x for x in specs if x.name != name)
+                notes.append(f"the grid of `{name}` was dropped; set it again or use `grid auto`")
+        self._commit(replace(s, model=model, specs=specs))
+        verb = "replaced" if replaced else "declared"
+        return Change(f"parameter `{name}` {verb}: {p.describe()}", tuple(notes))
+
+    def prior(self, name: str, text: str) -> Change:
+        s = self.state
+        s.model.param(name)
+        fname, args = parse_call(text, self._names(), fam.FAMILIES)
+        f = fam.get(fname)
+        if len(args) != len(f.params):
+            raise ModelError(f"`{fname}` takes {len(f.params)} argument"
+                             f"{'s' if len(f.params) != 1 else ''} ({', '.join(f.params)}), "
+                             f"got {len(args)}")
+        self._no_data(args, f"prior of `{name}`")
+        fam.check_constant_args(f, args)
+        pr = Prior(name, fname, args, None, text.strip())
+        model, replaced = s.model.with_prior(pr)
+        compile_model(replace(model, likelihoods=()), DataSet())
+        self._commit(replace(s, model=model))
+        return Change(f"prior of `{name}` {'replaced' if replaced else 'set'}: "
+                      f"{name} ~ {text.strip()}")
+
+    def prior_log(self, text: str) -> Change:
+        s = self.state
+        e = parse(text, self._names())
+        self._no_data((e,), "`prior log`")
+        model, _ = s.model.with_prior(Prior(None, None, (), e, text.strip()))
+        compile_model(replace(model, likelihoods=()), DataSet())
+        self._commit(replace(s, model=model))
+        return Change(f"prior term added: log {text.strip()}")
+
+    def _no_data(self, exprs, what: str) -> None:
+        cols = set(self.state.data.names)
+        for e in exprs:
+            from .model import expand_lets
+            used = {x.name for x in expand_lets(e, self.state.model).free_symbols} & cols
+            if used:
+                raise ModelError(f"{what} uses data column `{sorted(used)[0]}`; priors take "
+                                 "parameters and numbers only")
+
+    def likelihood(self, column: str, text: str, censor: str | None = None) -> Change:
+        s = self.state
+        if column not in s.data:
+            raise ModelError(f"no data column `{column}`; give it with `data {column} = ...` "
+                             "or `data load FILE.csv`")
+        if censor is not None and censor not in s.data:
+            raise ModelError(f"no data column `{censor}` for the censoring flags")
+        fname, args = parse_call(text, self._names(), fam.FAMILIES)
+        f = fam.get(fname)
+        if len(args) != len(f.params):
+            raise ModelError(f"`{fname}` takes {len(f.params)} argument"
+                             f"{'s' if len(f.params) != 1 else ''} ({', '.join(f.params)}), "
+                             f"got {len(args)}")
+        fam.check_constant_args(f, args)
+        if censor is not None and f.logsf is None:
+            raise ModelError(f"`{fname}` has no survival function; it cannot take censored rows")
+        lk = Likelihood(column, fname, args, censor, None, text.strip())
+        model, replaced = s.model.with_likelihood(lk)
+        notes = self._try_compile(model, s.data)
+        self._commit(replace(s, model=model))
+        cens = f" censored {censor}" if censor else ""
+        return Change(f"likelihood of `{column}` {'replaced' if replaced else 'set'}: "
+                      f"{column} ~ {text.strip()}{cens}", notes)
+
+    def likelihood_log(self, text: str) -> Change:
+        s = self.state
+        e = parse(text, self._names())
+        lk = Likelihood(None, None, (), None, e, text.strip())
+        model, _ = s.model.with_likelihood(lk)
+        notes = self._try_compile(model, s.data)
+        self._commit(replace(s, model=model))
+        return Change(f"likelihood term added: log {text.strip()}", notes)
+
+    def _try_compile(self, model: Model, data: DataSet) -> tuple[str, ...]:
+        """Compile now so that errors in the model show at once (a model with no
+        parameters yet is fine)."""
+        if not model.params:
+            return ()
+        compile_model(model, data)
+        return ()
+
+    def _data_notes(self, model: Model, data: DataSet) -> tuple[str, ...]:
+        """After a data change: what the likelihoods now say about the data, as
+        notes (the data command itself stands; questions will say it again)."""
+        if not model.params or not model.likelihoods:
+            return ()
+        try:
+            compile_model(model, data)
+        except QuadratError as exc:
+            return (str(exc),)
+        return ()
+
+    def let(self, name: str, text: str) -> Change:
+        s = self.state
+        try:
+            check_name(name, "let name")
+        except FormulaError as exc:
+            raise ModelError(str(exc)) from None
+        names = self._names()
+        names.pop(name, None)
+        e = parse(text, names)
+        model, replaced = s.model.with_let(Let(name, e, text.strip()), s.data)
+        self._commit(replace(s, model=model))
+        return Change(f"let `{name}` {'replaced' if replaced else 'set'}: {name} = {text.strip()}")
+
+    # -- data -----------------------------------------------------------------
+    def data_typed(self, name: str, texts: list[str]) -> Change:
+        s = self.state
+        try:
+            check_name(name, "column name")
+        except FormulaError as exc:
+            raise ModelError(str(exc)) from None
+        other = s.model.taken(name)
+        if other is not None:
+            raise ModelError(f"`{name}` is already a {other}")
+        from .data import Column
+        col = Column(name, typed_column(name, texts))
+        data, replaced = s.data.with_column(col)
+        notes = self._data_notes(s.model, data)
+        self._commit(replace(s, data=data))
+        return Change(f"data `{name}` {'replaced' if replaced else 'set'}: {col.rows} value"
+                      f"{'s' if col.rows != 1 else ''}", notes)
+
+    def resolve(self, path: str) -> str:
+        if os.path.isabs(path) or not self.base_dir:
+            return path
+        return os.path.join(self.base_dir, path)
+
+    def data_load(self, path: str, prefix: str | None = None) -> Change:
+        s = self.state
+        full = self.resolve(path)
+        table = read_csv(full)
+        pre = (prefix + "_") if prefix else ""
+        if prefix:
+            try:
+                check_name(prefix, "prefix")
+            except FormulaError as exc:
+                raise ModelError(str(exc)) from None
+        for h in table.header:
+            other = s.model.taken(pre + h)
+            if other is not None:
+                raise ModelError(f"column `{pre + h}` of `{os.path.basename(path)}` is already "
+                                 f"a {other}; load it with `as PREFIX`")
+        tname = prefix or os.path.splitext(os.path.basename(path))[0]
+        rec = FileRecord(path, table.sha256, table.rows, tuple(pre + h for h in table.header))
+        data = s.data.load_table(Table(tname, pre, table.header), table.columns, rec)
+        notes = self._data_notes(s.model, data)
+        self._commit(replace(s, data=data))
+        cols = ", ".join(f"`{pre + h}`" for h in table.header)
+        return Change(f"loaded {table.rows} row{'s' if table.rows != 1 else ''} from "
+                      f"`{os.path.basename(path)}`: {cols}", notes)
+
+    # -- grids ------------------------------------------------------------------
+    def grid(self, name: str, lo: float, hi: float, n: int | None = None,
+             scale: str | None = None) -> Change:
+        s = self.state
+        p = s.model.param(name)
+        if p.discrete and n is not None:
+            raise GridError(f"`{name}` is discrete: its grid is every value from LO to HI, "
+                            "so it takes no number of points")
+        ax = make_axis(p, lo, hi, n, rule=s.rule, scale=scale)
+        spec = AxisSpec(name, float(lo), float(hi), n, scale)
+        replaced = s.spec(name) is not None
+        specs = tuple(x for x in s.specs if x.name != name) + (spec,)
+        self._commit(replace(s, specs=specs))
+        return Change(f"grid {'replaced' if replaced else 'set'}: {ax.describe()}")
+
+    def grid_auto(self) -> tuple[Change, AutoGrid]:
+        s = self.state
+        compiled = self.compiled()
+        ag = auto_grid(compiled)
+        notes = []
+        if len(ag.modes) > 1:
+            notes.append(f"{len(ag.modes)} separated modes: " + "; ".join(
+                ", ".join(f"{k} = {v:.4g}" for k, v in m.items()) for m in ag.modes))
+        if ag.message:
+            notes.append(ag.message)
+        self._commit(replace(s, specs=ag.specs, auto=ag.specs, auto_basis=(id(s.model), id(s.data))))
+        grid = build_grid(compiled.params, ag.specs, rule=s.rule)
+        lines = "; ".join(a.describe() for a in grid.axes)
+        return Change(f"grid auto: {lines} ({grid.size:,} points)", tuple(notes)), ag
+
+    def rule(self, name: str) -> Change:
+        if name not in RULES:
+            raise GridError(f"unknown rule `{name}`; known: {', '.join(RULES)}")
+        self._commit(replace(self.state, rule=name))
+        return Change(f"rule set: {name}")
+
+    # -- compiling and computing -----------------------------------------------------
+    def compiled(self) -> Compiled:
+        s = self.state
+        key = (id(s.model), id(s.data))
+        if self._compiled_cache is not None and self._compiled_cache[0] == key:
+            return self._compiled_cache[1]
+        c = compile_model(s.model, s.data)
+        self._compiled_cache = (key, c, s.model, s.data)  # keep the objects alive
+        return c
+
+    def _grid_for(self, s: State, compiled: Compiled) -> tuple[Grid, tuple[str, ...], tuple]:
+        """The grid to compute on: the user's axes, and `grid auto` for the rest."""
+        notes = []
+        have = {x.name for x in s.specs}
+        missing = [p.name for p in compiled.params if p.name not in have]
+        specs = list(s.specs)
+        auto_used = ()
+        if missing:
+            ag = auto_grid(compiled)
+            auto_used = ag.specs
+            for x in ag.specs:
+                if x.name in missing:
+                    specs.append(x)
+            notes.append("grid auto for " + ", ".join(f"`{m}`" for m in missing))
+            if ag.message:
+                notes.append(ag.message)
+        grid = build_grid(compiled.params, specs, rule=s.rule)
+        return grid, tuple(notes), auto_used
+
+    def cost(self) -> CostReport:
+        s = self.state
+        compiled = self.compiled()
+        grid, notes, auto_used = self._grid_for(s, compiled)
+        c = plan.estimate(compiled, grid)
+        return CostReport(c, tuple(a.describe() for a in grid.axes), s.rule, bool(auto_used),
+                          self.budget_seconds)
+
+    def compute(self, *, progress: Callable[[int, int], None] | None = None,
+                force: bool = False) -> ComputeReport:
+        """Evaluate the posterior. The state changes only when it succeeds."""
+        s = self.state
+        compiled = self.compiled()
+        grid, notes, _ = self._grid_for(s, compiled)
+        c = plan.estimate(compiled, grid)
+        if not force:
+            if not c.fits:
+                raise ComputeError(
+                    f"this grid needs about {_bytes(c.memory)} of memory; the machine has "
+                    f"{_bytes(c.machine_memory)}: use fewer points or `zoom`")
+            if c.seconds > self.budget_seconds:
+                raise ComputeError(
+                    f"this grid has {c.points:,} points and would take about "
+                    f"{_duration(c.seconds)} (budget {_duration(self.budget_seconds)}): use "
+                    "fewer points, `zoom`, or another rule; `compute force` runs it anyway")
+        elif not c.fits:
+            raise ComputeError(f"this grid needs about {_bytes(c.memory)} of memory; the "
+                               f"machine has {_bytes(c.machine_memory)}: it cannot run here")
+        post = compute_posterior(compiled, grid, progress=progress)
+        warnings = self._warnings(post)
+        if post.diagnostics.zero_points:
+            notes = notes + (f"the posterior is zero at {post.diagnostics.zero_points:,} of "
+                             f"{grid.size:,} grid points (outside a support or constraint)",)
+        notes = notes + tuple(compiled.improper)
+        self._commit(replace(s, posterior=post, basis=_basis(s)))
+        return ComputeReport(grid.size, post.seconds, post.log_evidence, notes, warnings)
+
+    def _warnings(self, post: Posterior) -> tuple[str, ...]:
+        out = []
+        for name, (lo_m, hi_m) in post.diagnostics.edge_mass.items():
+            ax = post.grid.axis(name)
+            p = post.compiled.model.param(name)
+            if lo_m > EDGE_WARN and not (ax.scale == "linear" and ax.lo <= p.lo):
+                out.append(f"mass at the lower edge of `{name}` ({lo_m:.2g} at {ax.lo:.6g}): "
+                           "widen the grid or use `grid auto`")
+            if hi_m > EDGE_WARN and not (ax.scale == "linear" and ax.hi >= p.hi):
+                out.append(f"mass at the upper edge of `{name}` ({hi_m:.2g} at {ax.hi:.6g}): "
+                           "widen the grid or use `grid auto`")
+        for a in post.grid.axes:
+            if a.discrete or a.n < 2:
+                continue
+            m = post.marginals[a.name]
+            h = float(np.median(a.spacing()))
+            if m.sd > 0 and h > 0 and m.sd / h < MIN_POINTS_PER_SD:
+                out.append(f"the grid of `{a.name}` is too coarse for its spread: "
+                           f"{m.sd / h:.1g} points across one sd (want at least "
+                           f"{MIN_POINTS_PER_SD:g}); use more points or `zoom`")
+        return tuple(out)
+
+    def posterior(self) -> tuple[Posterior, tuple[str, ...]]:
+        """The current posterior; recomputed first when stale and cheap."""
+        s = self.state
+        if s.posterior is not None and s.basis == _basis(s):
+            return s.posterior, ()
+        what = "no posterior yet" if s.posterior is None else "the posterior is out of date"
+        compiled = self.compiled()
+        grid, notes, _ = self._grid_for(s, compiled)
+        c = plan.estimate(compiled, grid)
+        if c.seconds > CHEAP_SECONDS or not c.fits:
+            raise ComputeError(f"{what} (about {_duration(c.seconds)} to compute): use `compute`")
+        rep = self.compute()
+        return self.state.posterior, (f"{what}: computed first ({rep.points:,} points)",) + \
+            rep.notes + rep.warnings
+
+    # -- questions ------------------------------------------------------------------
+    def summary(self) -> Summary:
+        post, notes = self.posterior()
+        rows = []
+        for name in post.names:
+            rows.append(SummaryRow(name, post.param_mean(name), post.param_sd(name),
+                                   post.quantile(name, 0.025), post.quantile(name, 0.5),
+                                   post.quantile(name, 0.975)))
+        return Summary(tuple(rows), post.log_evidence, post.grid.size, notes)
+
+    def interval(self, name: str, level: float = 0.95, kind: str = "central") -> Answer:
+        post, notes = self.posterior()
+        self.state.model.param(name)
+        iv: Interval = post.interval(name, level, kind)
+        if len(iv.pieces) > 1:
+            notes = notes + (f"the {kind} region has {len(iv.pieces)} pieces: " + ", ".join(
+                f"[{a:.6g}, {b:.6g}]" for a, b in iv.pieces),)
+        return Answer("interval", f"{level:g} {kind} interval of {name}",
+                      (iv.lo.value, iv.hi.value), (iv.lo.error, iv.hi.error), notes, iv)
+
+    def mode(self) -> Answer:
+        post, notes = self.posterior()
+        m = questions.mode(post)
+        if not m.converged:
+            notes = notes + (m.message,)
+        names = tuple(m.values)
+        return Answer("mode", "joint mode " + ", ".join(names),
+                      tuple(m.values[n] for n in names), tuple(None for _ in names), notes, m)
+
+    def _expr(self, text: str, *, condition: bool = False):
+        names = {p.name: p.symbol for p in self.state.model.params}
+        names.update({l_.name: sp.Symbol(l_.name, real=True) for l_ in self.state.model.lets})
+        for c in self.state.data.names:
+            if c not in names:
+                names[c] = sp.Symbol(c, real=True)
+        return parse(text, names, condition=condition)
+
+    def prob(self, text: str) -> Answer:
+        cond = self._expr(text, condition=True)
+        post, notes = self.posterior()
+        est = questions.probability(post, cond)
+        return Answer("prob", f"P({text.strip()})", (est.value,), (est.error,), notes, est)
+
+    def mean(self, text: str) -> Answer:
+        e = self._expr(text)
+        post, notes = self.posterior()
+        mo = questions.moments(post, e)
+        return Answer("mean", f"mean of {text.strip()}", (float(mo.mean.value),),
+                      (mo.mean.error,), notes, mo)
+
+    def sd(self, text: str) -> Answer:
+        e = self._expr(text)
+        post, notes = self.posterior()
+        mo = questions.moments(post, e)
+        return Answer("sd", f"sd of {text.strip()}", (float(mo.sd.value),), (mo.sd.error,),
+                      notes, mo)
+
+    def quantile(self, text: str, q: float) -> Answer:
+        e = self._expr(text)
+        post, notes = self.posterior()
+        est = questions.quantile(post, e, q)
+        return Answer("quantile", f"{q:g} quantile of {text.strip()}", (est.value,),
+                      (est.error,), notes, est)
+
+    def evidence(self) -> Answer:
+        post, notes = self.posterior()
+        if post.log_evidence is None:
+            why = "; ".join(post.compiled.improper) or "the prior is improper"
+            raise ComputeError(f"the evidence is not defined: {why}")
+        ev = post.log_evidence
+        return Answer("evidence", "log evidence", (ev.value,), (ev.error,), notes, ev)
+
+    # -- housekeeping -------------------------------------------------------------
+    def undo(self) -> Change:
+        if not self.undo_stack:
+            raise QuadratError("nothing to undo")
+        self.state = self.undo_stack.pop()
+        return Change("undone: the state is as it was before the last change")
+
+    def reset(self) -> Change:
+        self._commit(State())
+        return Change("reset: model, data, grid and posterior cleared (`undo` brings them back)")
+
+
+def _bytes(n: float) -> str:
+    for unit in ("bytes", "KiB", "MiB", "GiB", "TiB", "PiB", "EiB"):
+        if abs(n) < 1024 or unit == "EiB":
+            return f"{n:,.0f} {unit}" if unit == "bytes" else f"{n:,.1f} {unit}"
+        n /= 1024
+    return f"{n:.3g} EiB"
+
+
+def _duration(s: float) -> str:
+    if not math.isfinite(s):
+        return "forever"
+    if s < 1:
+        return f"{s * 1000:.0f} ms"
+    if s < 120:
+        return f"{s:.1f} s"
+    if s < 7200:
+        return f"{s / 60:.1f} minutes"
+    if s < 172800:
+        return f"{s / 3600:.1f} hours"
+    years = s / (365.25 * 86400)
+    if years < 1:
+        return f"{s / 86400:.1f} days"
+    return f"{years:.3g} years"
