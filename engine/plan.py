@@ -78,8 +78,8 @@ def seconds_per_point(compiled: Compiled, grid: Grid, *, sample: int = 20_000) -
     """Measured seconds for one point: the density plus the reduction's share."""
     n = int(min(sample, max(grid.size, 1)))
     rng = np.random.default_rng(0)
-    flat = rng.integers(0, grid.size, size=n)
-    idx = np.unravel_index(flat, grid.shape)
+    # per-axis indices: the grid may have more points than an int64 can count
+    idx = tuple(rng.integers(0, a.n, size=n) for a in grid.axes)
     theta = [a.values[i] for a, i in zip(grid.axes, idx)]
     evaluate_block(compiled, theta)  # warm up (first calls build caches)
     best = math.inf
@@ -101,6 +101,18 @@ def estimate(compiled: Compiled, grid: Grid, *, pairs: int = 0) -> Cost:
     spp = seconds_per_point(compiled, grid)
     mem = memory_for(points, [a.n for a in grid.axes], pairs, levels=grid.levels)
     return Cost(points, mem, spp * points, spp, machine_memory())
+
+
+def format_count(n: int) -> str:
+    """A point count as people read it: 1,000 or 10^20 or 3.4 x 10^17."""
+    n = int(n)
+    if n < 10**12:
+        return f"{n:,}"
+    e = len(str(n)) - 1
+    lead = n / 10**e
+    if n == 10**e:
+        return f"10^{e}"
+    return f"{lead:.2g} x 10^{e}"
 
 
 def estimate_counts(compiled: Compiled, counts: list[int], grid: Grid | None = None) -> Cost:

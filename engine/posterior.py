@@ -13,7 +13,7 @@ from __future__ import annotations
 
 import math
 import time
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Callable, Sequence
 
 import numpy as np
@@ -362,6 +362,7 @@ class Posterior:
     seconds: float
     logp: np.ndarray | None = field(default=None, repr=False)
     log_prior_norm: float = 0.0
+    evaluated: int = 0
 
     @property
     def names(self) -> tuple[str, ...]:
@@ -492,7 +493,7 @@ def evaluate_block(compiled: Compiled, theta: Sequence[np.ndarray]) -> np.ndarra
 def compute(compiled: Compiled, grid: Grid, *, block: int = BLOCK,
             pairs: Sequence[tuple[int, int]] | None = None,
             progress: Callable[[int, int], None] | None = None,
-            store: bool | None = None) -> Posterior:
+            store: bool | None = None, reuse: "Posterior | None" = None) -> Posterior:
     """Evaluate the posterior of `compiled` on `grid`, in blocks.
 
     Parameters
@@ -510,6 +511,10 @@ def compute(compiled: Compiled, grid: Grid, *, block: int = BLOCK,
     store : bool, keyword-only
         Keep the log-density of every point (default: when the grid has at most
         `STORE_LIMIT` points).
+    reuse : Posterior, keyword-only
+        An earlier posterior of the same model on a grid that this one refines
+        (same bounds and scales, nested nodes). Its kept log-density is reused at
+        the nodes the two grids share, so only the new nodes are evaluated.
 
     Returns
     -------
@@ -531,11 +536,10 @@ def compute(compiled: Compiled, grid: Grid, *, block: int = BLOCK,
         store = grid.size <= STORE_LIMIT
     # verify reduced sums against row-wise sums on a sample of points
     rng = np.random.default_rng(0)
-    sample = rng.integers(0, grid.size, size=min(grid.size, 256))
-    centre_flat = np.ravel_multi_index(tuple(a.n // 2 for a in grid.axes), grid.shape)
-    sample = np.concatenate([[centre_flat], sample])
-    sidx = np.unravel_index(sample, grid.shape)
+    k = 256
+    sidx = tuple(np.concatenate([[a.n // 2], rng.integers(0, a.n, size=k)]) for a in grid.axes)
     compiled = compiled.verified(_block_theta(grid, sidx))
+    nest = _nesting(grid, reuse) if reuse is not None else None
 
     centre = np.array([a.values[a.n // 2] for a in grid.axes])
     acc = _Acc(grid, levels, pairs, centre)
@@ -545,10 +549,26 @@ def compute(compiled: Compiled, grid: Grid, *, block: int = BLOCK,
     zero = 0
     best_lp, best_flat = -np.inf, 0
     done = 0
+    evaluated = 0
     for start, stop in grid.blocks(block):
         idx = grid.indices(start, stop)
         theta = _block_theta(grid, idx)
-        lp = evaluate_block(compiled, theta)
+        if nest is not None:
+            lp = np.empty(stop - start)
+            old = [m[i] for m, i in zip(nest, idx)]
+            shared = np.ones(stop - start, bool)
+            for o in old:
+                shared &= o >= 0
+            if shared.any():
+                flat_old = np.ravel_multi_index(tuple(o[shared] for o in old), reuse.grid.shape)
+                lp[shared] = reuse.logp[flat_old]
+            fresh = ~shared
+            if fresh.any():
+                lp[fresh] = evaluate_block(compiled, [t[fresh] for t in theta])
+            evaluated += int(fresh.sum())
+        else:
+            lp = evaluate_block(compiled, theta)
+            evaluated += stop - start
         bad = np.isnan(lp)
         if bad.any():
             nan_count += int(bad.sum())
@@ -604,8 +624,37 @@ def compute(compiled: Compiled, grid: Grid, *, block: int = BLOCK,
         raise ComputeError("the posterior is zero at every grid point: the data are impossible "
                            "under the model on this grid (check the data, the supports and the "
                            "grid bounds)")
-    return _finish(compiled, grid, acc, levels, pairs, best_flat, best_lp, zero, logp_all,
+    post = _finish(compiled, grid, acc, levels, pairs, best_flat, best_lp, zero, logp_all,
                    time.perf_counter() - t0)
+    return replace(post, evaluated=evaluated)
+
+
+def _nesting(grid: Grid, old: "Posterior") -> list[np.ndarray] | None:
+    """For each axis, the old node index of every new node (-1 where new), or None
+    when the grids do not nest or the old log-density was not kept."""
+    if old.logp is None or old.grid.names != grid.names:
+        return None
+    maps = []
+    for a, b in zip(grid.axes, old.grid.axes):
+        if a.scale != b.scale or a.rule != b.rule or a.lo != b.lo or a.hi != b.hi:
+            return None
+        if a.n == b.n:
+            maps.append(np.arange(a.n))
+            continue
+        if a.discrete or a.rule == "gauss":
+            return None
+        if a.rule == "midpoint":
+            if a.n != 3 * b.n:
+                return None
+            m = np.full(a.n, -1)
+            m[1::3] = np.arange(b.n)
+        else:
+            if a.n != 2 * b.n - 1:
+                return None
+            m = np.full(a.n, -1)
+            m[::2] = np.arange(b.n)
+        maps.append(m)
+    return maps
 
 
 def _point_text(where: dict[str, float]) -> str:

@@ -25,7 +25,8 @@ from .expr import check_name, parse, parse_call
 from .grid import Grid, make_axis
 from .model import Compiled, Let, Likelihood, Model, Prior, compile_model, make_param
 from .posterior import Estimate, Interval, Posterior, compute as compute_posterior
-from .refine import AutoGrid, AxisSpec, auto_grid, build_grid
+from .refine import (AutoGrid, AxisSpec, RefineResult, RefineStep, auto_grid, build_grid,
+                     refine as refine_posterior, refined_grid, zoom_specs)
 from .rules import RULES
 
 #: A question recomputes a stale posterior by itself when that is predicted to
@@ -109,12 +110,35 @@ class ComputeReport:
 
 
 @dataclass(frozen=True)
+class CostStep:
+    """A refinement step ahead: its points, memory and predicted seconds."""
+
+    step: int
+    points: int
+    memory: int
+    seconds: float
+
+
+@dataclass(frozen=True)
 class CostReport:
     cost: plan.Cost
     grid: tuple[str, ...]      # one line per axis
     rule: str
     auto: bool                 # whether some axes would come from grid auto
     budget_seconds: float
+    ahead: tuple[CostStep, ...] = ()
+    advice: str = ""
+
+
+@dataclass(frozen=True)
+class RefineReport:
+    """What `refine` did: the table of steps and why it stopped."""
+
+    steps: tuple[RefineStep, ...]
+    converged: bool
+    message: str
+    notes: tuple[str, ...]
+    warnings: tuple[str, ...]
 
 
 @dataclass(frozen=True)
@@ -142,6 +166,7 @@ class State:
     posterior: Posterior | None = None
     basis: tuple = ()                     # (model, data, grid specs, rule) of the posterior
     keeps: tuple = ()
+    steps: tuple = ()                     # refinement steps of the current posterior
 
     def spec(self, name: str) -> AxisSpec | None:
         for s in self.specs:
@@ -429,8 +454,32 @@ class Workspace:
         compiled = self.compiled()
         grid, notes, auto_used = self._grid_for(s, compiled)
         c = plan.estimate(compiled, grid)
+        ahead = []
+        g = grid
+        if not all(a.discrete for a in grid.axes) and c.points < 10**12:
+            for k in range(1, 4):
+                g2 = refined_grid(g, None)
+                share = 1.0 - g.size / g2.size if g.size <= plan.STORE_LIMIT else 1.0
+                mem = plan.memory_for(g2.size, [a.n for a in g2.axes], levels=g2.levels)
+                ahead.append(CostStep(k, g2.size, mem, c.seconds_per_point * g2.size * share))
+                g = g2
         return CostReport(c, tuple(a.describe() for a in grid.axes), s.rule, bool(auto_used),
-                          self.budget_seconds)
+                          self.budget_seconds, tuple(ahead), self._advice(c, grid))
+
+    def _advice(self, c: plan.Cost, grid: Grid) -> str:
+        """Which way to go when a tensor grid is too big for the budget."""
+        if c.fits and c.seconds <= self.budget_seconds:
+            return ""
+        d = sum(1 for a in grid.axes if not a.discrete)
+        per = max(2, int((self.budget_seconds / max(c.seconds_per_point, 1e-12)) ** (1 / max(d, 1))))
+        text = (f"{plan.format_count(c.points)} points is beyond the budget: a tensor grid "
+                f"grows as N^d, and within {_duration(self.budget_seconds)} it allows about "
+                f"{per} points per axis for {d} continuous parameters")
+        if d > 6:
+            text += "; with this many parameters a tensor grid is the wrong tool"
+        else:
+            text += "; use fewer points, `grid auto` or `zoom` to tighten the bounds"
+        return text
 
     def compute(self, *, progress: Callable[[int, int], None] | None = None,
                 force: bool = False) -> ComputeReport:
@@ -438,28 +487,81 @@ class Workspace:
         s = self.state
         compiled = self.compiled()
         grid, notes, _ = self._grid_for(s, compiled)
-        c = plan.estimate(compiled, grid)
-        if not force:
-            if not c.fits:
-                raise ComputeError(
-                    f"this grid needs about {_bytes(c.memory)} of memory; the machine has "
-                    f"{_bytes(c.machine_memory)}: use fewer points or `zoom`")
-            if c.seconds > self.budget_seconds:
-                raise ComputeError(
-                    f"this grid has {c.points:,} points and would take about "
-                    f"{_duration(c.seconds)} (budget {_duration(self.budget_seconds)}): use "
-                    "fewer points, `zoom`, or another rule; `compute force` runs it anyway")
-        elif not c.fits:
-            raise ComputeError(f"this grid needs about {_bytes(c.memory)} of memory; the "
-                               f"machine has {_bytes(c.machine_memory)}: it cannot run here")
+        self._check_cost(compiled, grid, force=force)
         post = compute_posterior(compiled, grid, progress=progress)
         warnings = self._warnings(post)
         if post.diagnostics.zero_points:
             notes = notes + (f"the posterior is zero at {post.diagnostics.zero_points:,} of "
                              f"{grid.size:,} grid points (outside a support or constraint)",)
         notes = notes + tuple(compiled.improper)
-        self._commit(replace(s, posterior=post, basis=_basis(s)))
+        self._commit(replace(s, posterior=post, basis=_basis(s), steps=()))
         return ComputeReport(grid.size, post.seconds, post.log_evidence, notes, warnings)
+
+    def _check_cost(self, compiled: Compiled, grid: Grid, *, force: bool = False) -> plan.Cost:
+        """Refuse a grid that would not fit in memory, or (unless forced) would break
+        the time budget, before anything is allocated."""
+        c = plan.estimate(compiled, grid)
+        if c.points >= 2**62:
+            raise ComputeError(f"this grid has {plan.format_count(c.points)} points: more than "
+                               "quadrat can count; use fewer points or fewer parameters")
+        if not c.fits:
+            raise ComputeError(
+                f"this grid ({plan.format_count(c.points)} points) needs about "
+                f"{_bytes(c.memory)} of memory; the machine has {_bytes(c.machine_memory)}: "
+                "use fewer points or `zoom`")
+        if not force and c.seconds > self.budget_seconds:
+            raise ComputeError(
+                f"this grid has {plan.format_count(c.points)} points and would take about "
+                f"{_duration(c.seconds)} (budget {_duration(self.budget_seconds)}): use fewer "
+                "points, `zoom`, or another rule; `compute force` runs it anyway")
+        return c
+
+    # -- refinement ------------------------------------------------------------------
+    def _fresh_posterior(self, progress=None) -> tuple[Posterior, tuple[str, ...]]:
+        s = self.state
+        if s.posterior is not None and s.basis == _basis(s):
+            return s.posterior, ()
+        rep = self.compute(progress=progress)
+        return self.state.posterior, (f"computed first ({rep.points:,} points)",) + rep.notes
+
+    def refine(self, axis: str | None = None, until: float | None = None, *,
+               progress=None) -> RefineReport:
+        """Refine step by step (computing first if needed); the state takes the
+        final posterior and its grid."""
+        if axis is not None:
+            self.state.model.param(axis)
+        if until is not None and not (until > 0 and math.isfinite(until)):
+            raise GridError(f"`until` needs a positive tolerance; got {until:g}")
+        post, notes = self._fresh_posterior(progress)
+        res = refine_posterior(self.compiled(), post, axis=axis, until=until,
+                               budget_seconds=self.budget_seconds, progress=progress)
+        s = self.state
+        new = res.posterior
+        specs = tuple(AxisSpec(a.name, a.lo, a.hi, None if a.discrete else a.n,
+                               None if a.discrete else a.scale) for a in new.grid.axes)
+        steps = s.steps if s.steps else res.steps[:1]
+        steps = steps + res.steps[1:]
+        ns = replace(s, specs=specs, posterior=new, steps=steps)
+        self._commit(replace(ns, basis=_basis(ns)))
+        return RefineReport(res.steps, res.converged, res.message, notes, self._warnings(new))
+
+    def zoom(self, mass: float = 1 - 1e-9, *, progress=None, force: bool = False
+             ) -> ComputeReport:
+        """Shrink every axis to the region holding `mass` and compute again with the
+        same number of points."""
+        post, notes = self._fresh_posterior(progress)
+        specs = zoom_specs(post, mass)
+        s = self.state
+        compiled = self.compiled()
+        grid = build_grid(compiled.params, specs, rule=s.rule)
+        self._check_cost(compiled, grid, force=force)
+        new = compute_posterior(compiled, grid, progress=progress)
+        ns = replace(s, specs=specs, posterior=new, steps=())
+        self._commit(replace(ns, basis=_basis(ns)))
+        lines = "; ".join(a.describe() for a in grid.axes)
+        return ComputeReport(grid.size, new.seconds, new.log_evidence,
+                             notes + (f"zoomed to {mass:.10g} of the mass: {lines}",),
+                             self._warnings(new))
 
     def _warnings(self, post: Posterior) -> tuple[str, ...]:
         out = []
@@ -479,7 +581,7 @@ class Workspace:
             h = float(np.median(a.spacing()))
             if m.sd > 0 and h > 0 and m.sd / h < MIN_POINTS_PER_SD:
                 out.append(f"the grid of `{a.name}` is too coarse for its spread: "
-                           f"{m.sd / h:.1g} points across one sd (want at least "
+                           f"{m.sd / h:.2g} points across one sd (want at least "
                            f"{MIN_POINTS_PER_SD:g}); use more points or `zoom`")
         return tuple(out)
 
