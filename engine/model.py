@@ -373,6 +373,27 @@ class RowTerm:
 
 
 @dataclass(frozen=True)
+class StatDef:
+    """How one sufficient statistic is made from the data columns."""
+
+    kind: str              # "sum", "sum+" (a sum whose terms must be >= 0), "max", "min"
+    fn: Callable           # fn(*columns) -> (rows,)
+    columns: tuple[str, ...]
+
+    def value(self, data: dict[str, np.ndarray], rows: int) -> float:
+        with np.errstate(all="ignore"):
+            v = np.broadcast_to(np.asarray(self.fn(*[data[c] for c in self.columns]), float),
+                                (rows,))
+        if not np.all(np.isfinite(v)) or (self.kind == "sum+" and np.any(v < 0)):
+            raise ValueError("statistic does not apply to these rows")
+        if self.kind == "max":
+            return float(np.max(v))
+        if self.kind == "min":
+            return float(np.min(v))
+        return math.fsum(v)
+
+
+@dataclass(frozen=True)
 class ReducedTerm:
     """A sum over rows reduced to sufficient statistics."""
 
@@ -381,6 +402,14 @@ class ReducedTerm:
     stats: tuple[float, ...]
     conds: Callable | None
     fallback: RowTerm      # the same sum done row by row, to verify against
+    defs: tuple[StatDef, ...] = ()
+
+    def restat(self, data: dict[str, np.ndarray], rows: int) -> "ReducedTerm":
+        """The same term over other rows (a dict of column arrays of length `rows`).
+
+        Raises ValueError where a statistic does not apply (then evaluate those rows
+        with a fresh compile instead)."""
+        return replace(self, stats=tuple(d.value(data, rows) for d in self.defs))
 
     def __call__(self, theta: Sequence[np.ndarray]) -> np.ndarray:
         n = theta[0].shape[0] if theta else 1
@@ -655,28 +684,34 @@ def _reduce_sum(expr, conds, psyms, csyms, colvals):
         return None
     stats: list[float] = []
     stat_syms: list[sp.Symbol] = []
+    defs: list[tuple[str, sp.Expr]] = []
 
-    def stat(value: float) -> sp.Symbol:
+    def stat(value: float, kind: str, e: sp.Expr) -> sp.Symbol:
         s = sp.Symbol(f"s{len(stats)}", real=True)
         stats.append(float(value))
         stat_syms.append(s)
+        defs.append((kind, e))
         return s
 
     grouped: dict[sp.Expr, list[sp.Expr]] = {}
     extra: list[sp.Expr] = []
     remainder: list[sp.Expr] = []
     const_total = 0.0
+    const_terms: list[sp.Expr] = []
     for term in sp.Add.make_args(expanded):
         fs = term.free_symbols
         if not fs & pset:
-            v = data_values(term) if fs else np.full(rows, float(term))
+            # numerically, also for a constant: float() cannot evaluate gammaln(2)
+            v = data_values(term)
             if not np.all(np.isfinite(v)):
                 remainder.append(term)
                 continue
             const_total += math.fsum(v)
+            const_terms.append(term)
             continue
         if not fs & dset:
-            grouped.setdefault(term, []).append(sp.Integer(rows))
+            # summed over the rows: the row count is a statistic too
+            grouped.setdefault(term, []).append(stat(float(rows), "sum", sp.Integer(1)))
             continue
         dpart, ppart, mixed = [], [], []
         for f_ in sp.Mul.make_args(term):
@@ -690,7 +725,8 @@ def _reduce_sum(expr, conds, psyms, csyms, colvals):
         if not mixed:
             v = data_values(sp.Mul(*dpart))
             if np.all(np.isfinite(v)):
-                grouped.setdefault(sp.Mul(*ppart), []).append(stat(math.fsum(v)))
+                grouped.setdefault(sp.Mul(*ppart), []).append(
+                    stat(math.fsum(v), "sum", sp.Mul(*dpart)))
                 continue
         elif len(mixed) == 1 and isinstance(mixed[0], (S.xlogy, S.xlog1py)) and not dpart:
             # sum_i xlogy(a_i, b) = xlogy(sum_i a_i, b) when every a_i >= 0
@@ -698,7 +734,7 @@ def _reduce_sum(expr, conds, psyms, csyms, colvals):
             if a.free_symbols <= dset and not (b.free_symbols & dset):
                 v = data_values(a)
                 if np.all(np.isfinite(v)) and np.all(v >= 0):
-                    extra.append(sp.Mul(*ppart) * type(mixed[0])(stat(math.fsum(v)), b))
+                    extra.append(sp.Mul(*ppart) * type(mixed[0])(stat(math.fsum(v), "sum+", a), b))
                     continue
         remainder.append(term)
     red_conds, rem_conds = [], []
@@ -718,13 +754,14 @@ def _reduce_sum(expr, conds, psyms, csyms, colvals):
             continue
         # data < param for every row: the largest data value decides (and so on)
         big = isinstance(c, (sp.StrictLessThan, sp.LessThan)) == ld
-        s = stat(float(np.max(v) if big else np.min(v)))
+        side = lhs if ld else rhs
+        s = stat(float(np.max(v) if big else np.min(v)), "max" if big else "min", side)
         red_conds.append(c.func(s, rhs) if ld else c.func(lhs, s))
     if not grouped and not extra and not red_conds:
         return None
     total = sp.Add(*[sp.Add(*coefs) * b for b, coefs in grouped.items()], *extra)
-    total = total + stat(const_total)
-    return total, stat_syms, stats, red_conds, sp.Add(*remainder), rem_conds
+    total = total + stat(const_total, "sum", sp.Add(*const_terms))
+    return total, stat_syms, stats, red_conds, sp.Add(*remainder), rem_conds, defs
 
 
 def _sum_terms(expr, conds, params, csyms, colvals, *, reduce: bool = True) -> list[Term]:
@@ -733,7 +770,7 @@ def _sum_terms(expr, conds, params, csyms, colvals, *, reduce: bool = True) -> l
     red = _reduce_sum(expr, conds, psyms, csyms, colvals) if reduce else None
     if red is None:
         return [_row_term(expr, conds, psyms, csyms, colvals)]
-    total, ssyms, stats, rconds, rem, rem_conds = red
+    total, ssyms, stats, rconds, rem, rem_conds, defs = red
     fallback = _row_term(expr - rem, [c for c in conds if c not in rem_conds], psyms, csyms,
                          colvals)
     used = [i for i, s in enumerate(psyms) if s in total.free_symbols or
@@ -742,7 +779,13 @@ def _sum_terms(expr, conds, params, csyms, colvals, *, reduce: bool = True) -> l
     sub = {psyms[i]: tp[k] for k, i in enumerate(used)}
     fn = _lambdify(tp + ssyms, total.xreplace(sub))
     cfn = _lambdify(tp + ssyms, sp.And(*rconds).xreplace(sub)) if rconds else None
-    out: list[Term] = [ReducedTerm(fn, tuple(used), tuple(stats), cfn, fallback)]
+    stat_fns = []
+    for kind, e in defs:
+        ucols = [j for j, sy in enumerate(csyms) if sy in e.free_symbols]
+        cp = _placeholders("c", len(ucols))
+        stat_fns.append(StatDef(kind, _lambdify(cp, e.xreplace(
+            {csyms[j]: cp[k] for k, j in enumerate(ucols)})), tuple(csyms[j].name for j in ucols)))
+    out: list[Term] = [ReducedTerm(fn, tuple(used), tuple(stats), cfn, fallback, tuple(stat_fns))]
     if rem != 0 or rem_conds:
         out.append(_row_term(rem, rem_conds, psyms, csyms, colvals))
     return out
@@ -924,8 +967,9 @@ def compile_model(model: Model, data: DataSet, *, reduce: bool = True,
             if mask is not None:
                 sel &= mask
             if not used_cols:
+                # a term that reads no rows counts once, never again for new rows
                 const, _, pconds, mixed = _split_conds(t.conds, pset, dset)
-                if start == 0:
+                if rows_from is None or key not in rows_from:
                     terms.append(_param_term(t.expr, pconds + mixed, params))
                 continue
             colvals = [np.ascontiguousarray(data.values(n)[sel]) for n in cols]

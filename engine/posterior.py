@@ -493,7 +493,8 @@ def evaluate_block(compiled: Compiled, theta: Sequence[np.ndarray]) -> np.ndarra
 def compute(compiled: Compiled, grid: Grid, *, block: int = BLOCK,
             pairs: Sequence[tuple[int, int]] | None = None,
             progress: Callable[[int, int], None] | None = None,
-            store: bool | None = None, reuse: "Posterior | None" = None) -> Posterior:
+            store: bool | None = None, reuse: "Posterior | None" = None,
+            logp: np.ndarray | None = None) -> Posterior:
     """Evaluate the posterior of `compiled` on `grid`, in blocks.
 
     Parameters
@@ -515,6 +516,10 @@ def compute(compiled: Compiled, grid: Grid, *, block: int = BLOCK,
         An earlier posterior of the same model on a grid that this one refines
         (same bounds and scales, nested nodes). Its kept log-density is reused at
         the nodes the two grids share, so only the new nodes are evaluated.
+    logp : ndarray, shape (points,), keyword-only
+        The unnormalised log posterior at every point, already known (for example
+        an earlier one plus the log-likelihood of newly appended rows): then the
+        model is not evaluated at all.
 
     Returns
     -------
@@ -538,7 +543,10 @@ def compute(compiled: Compiled, grid: Grid, *, block: int = BLOCK,
     rng = np.random.default_rng(0)
     k = 256
     sidx = tuple(np.concatenate([[a.n // 2], rng.integers(0, a.n, size=k)]) for a in grid.axes)
-    compiled = compiled.verified(_block_theta(grid, sidx))
+    if logp is None:
+        compiled = compiled.verified(_block_theta(grid, sidx))
+    elif logp.shape != (grid.size,):
+        raise ComputeError("the log-density given does not match the grid")
     nest = _nesting(grid, reuse) if reuse is not None else None
 
     centre = np.array([a.values[a.n // 2] for a in grid.axes])
@@ -553,7 +561,9 @@ def compute(compiled: Compiled, grid: Grid, *, block: int = BLOCK,
     for start, stop in grid.blocks(block):
         idx = grid.indices(start, stop)
         theta = _block_theta(grid, idx)
-        if nest is not None:
+        if logp is not None:
+            lp = np.array(logp[start:stop], dtype=float)
+        elif nest is not None:
             lp = np.empty(stop - start)
             old = [m[i] for m, i in zip(nest, idx)]
             shared = np.ones(stop - start, bool)

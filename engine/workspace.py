@@ -37,6 +37,9 @@ BUDGET_SECONDS = 600.0
 UNDO_DEPTH = 200
 #: Posterior mass at an axis end above which `compute` warns.
 EDGE_WARN = 1e-6
+#: The edge mass `grid auto` aims for; an append that pushes past ten times this
+#: re-sizes the grid.
+EDGE_MASS_AUTO = 1e-9
 #: Fewer nodes than this across one posterior sd is called too coarse.
 MIN_POINTS_PER_SD = 5.0
 
@@ -78,6 +81,7 @@ class Answer:
     errors: tuple[float | None, ...]
     notes: tuple[str, ...] = ()
     detail: object = None
+    now: "Answer | None" = None   # inside a what-if layer: the same question, as things are
 
 
 @dataclass(frozen=True)
@@ -96,7 +100,46 @@ class Summary:
     log_evidence: Estimate | None
     points: int
     notes: tuple[str, ...] = ()
+    now: "Summary | None" = None
 
+
+@dataclass(frozen=True)
+class Kept:
+    """A model kept for comparison: its evidence and what it was fitted to."""
+
+    name: str
+    log_evidence: Estimate | None
+    improper: tuple[str, ...]
+    data_key: str
+    data_rows: str
+    model_lines: tuple[str, ...]
+    cautions: tuple[str, ...]
+    points: int
+
+
+@dataclass(frozen=True)
+class Comparison:
+    """Two kept models: log Bayes factor (first over second) and its error."""
+
+    first: Kept
+    second: Kept
+    log_bf: Estimate
+    notes: tuple[str, ...]
+
+    @property
+    def bayes_factor(self) -> float:
+        v = self.log_bf.value
+        return math.exp(v) if v < 709 else math.inf
+
+
+@dataclass(frozen=True)
+class Prediction:
+    """A predicted new observation ``NAME ~ FAMILY(args)``."""
+
+    name: str
+    family: str
+    args: tuple
+    text: str
 
 @dataclass(frozen=True)
 class ComputeReport:
@@ -165,8 +208,9 @@ class State:
     rule: str = "trapezoid"
     posterior: Posterior | None = None
     basis: tuple = ()                     # (model, data, grid specs, rule) of the posterior
-    keeps: tuple = ()
+    keeps: tuple = ()                     # Kept, by name
     steps: tuple = ()                     # refinement steps of the current posterior
+    predictions: tuple = ()               # Prediction, by name
 
     def spec(self, name: str) -> AxisSpec | None:
         for s in self.specs:
@@ -196,6 +240,7 @@ class Workspace:
         self.budget_seconds = budget_seconds
         self.base_dir = base_dir
         self._compiled_cache: tuple | None = None
+        self._whatif: tuple[State, list[State]] | None = None
 
     # -- bookkeeping ---------------------------------------------------------
     def _commit(self, new: State) -> None:
@@ -217,7 +262,8 @@ class Workspace:
         else:
             st = "out of date"
         ev = post.log_evidence.value if post is not None and post.log_evidence else None
-        return Status(s.model.param_names, post.grid.size if post else None, st, ev, False)
+        return Status(s.model.param_names, post.grid.size if post else None, st, ev,
+                      self._whatif is not None)
 
     # -- declarations ----------------------------------------------------------
     def param(self, name: str, kind: str, *, lo: float | None = None, hi: float | None = None,
@@ -601,7 +647,7 @@ class Workspace:
             rep.notes + rep.warnings
 
     # -- questions ------------------------------------------------------------------
-    def summary(self) -> Summary:
+    def _summary(self) -> Summary:
         post, notes = self.posterior()
         rows = []
         for name in post.names:
@@ -610,7 +656,7 @@ class Workspace:
                                    post.quantile(name, 0.975)))
         return Summary(tuple(rows), post.log_evidence, post.grid.size, notes)
 
-    def interval(self, name: str, level: float = 0.95, kind: str = "central") -> Answer:
+    def _interval(self, name: str, level: float = 0.95, kind: str = "central") -> Answer:
         post, notes = self.posterior()
         self.state.model.param(name)
         iv: Interval = post.interval(name, level, kind)
@@ -620,7 +666,7 @@ class Workspace:
         return Answer("interval", f"{level:g} {kind} interval of {name}",
                       (iv.lo.value, iv.hi.value), (iv.lo.error, iv.hi.error), notes, iv)
 
-    def mode(self) -> Answer:
+    def _mode(self) -> Answer:
         post, notes = self.posterior()
         m = questions.mode(post)
         if not m.converged:
@@ -632,45 +678,406 @@ class Workspace:
     def _expr(self, text: str, *, condition: bool = False):
         names = {p.name: p.symbol for p in self.state.model.params}
         names.update({l_.name: sp.Symbol(l_.name, real=True) for l_ in self.state.model.lets})
+        for pr in self.state.predictions:
+            names.setdefault(pr.name, sp.Symbol(pr.name, real=True))
         for c in self.state.data.names:
             if c not in names:
                 names[c] = sp.Symbol(c, real=True)
         return parse(text, names, condition=condition)
 
-    def prob(self, text: str) -> Answer:
+    def _predicted_in(self, e) -> Prediction | None:
+        found = [self._prediction(x.name) for x in e.free_symbols
+                 if self._prediction(x.name) is not None]
+        if not found:
+            return None
+        if len(found) > 1 or e.free_symbols != {sp.Symbol(found[0].name, real=True)}:
+            raise ComputeError(f"a question about the predicted `{found[0].name}` may use "
+                               "only it and numbers")
+        return found[0]
+
+    def _prob(self, text: str) -> Answer:
         cond = self._expr(text, condition=True)
+        pr = self._predicted_in(cond)
+        if pr is not None:
+            pv, notes = self._predictive(pr)
+            val = _predictive_prob(pv, cond, pr.name)
+            return Answer("prob", f"P({text.strip()}) for a new {pr.name}", (val,), (None,),
+                          notes, pv)
         post, notes = self.posterior()
         est = questions.probability(post, cond)
         return Answer("prob", f"P({text.strip()})", (est.value,), (est.error,), notes, est)
 
-    def mean(self, text: str) -> Answer:
+    def _pred_only(self, e):
+        pr = self._predicted_in(e)
+        if pr is not None and not isinstance(e, sp.Symbol):
+            raise ComputeError(f"ask about the predicted `{pr.name}` itself (mean {pr.name}, "
+                               f"sd {pr.name}, quantile {pr.name} Q)")
+        return pr
+
+    def _mean(self, text: str) -> Answer:
         e = self._expr(text)
+        pr = self._pred_only(e)
+        if pr is not None:
+            pv, notes = self._predictive(pr)
+            return Answer("mean", f"mean of a new {pr.name}", (pv.mean,), (None,), notes, pv)
         post, notes = self.posterior()
         mo = questions.moments(post, e)
         return Answer("mean", f"mean of {text.strip()}", (float(mo.mean.value),),
                       (mo.mean.error,), notes, mo)
 
-    def sd(self, text: str) -> Answer:
+    def _sd(self, text: str) -> Answer:
         e = self._expr(text)
+        pr = self._pred_only(e)
+        if pr is not None:
+            pv, notes = self._predictive(pr)
+            return Answer("sd", f"sd of a new {pr.name}", (pv.sd,), (None,), notes, pv)
         post, notes = self.posterior()
         mo = questions.moments(post, e)
         return Answer("sd", f"sd of {text.strip()}", (float(mo.sd.value),), (mo.sd.error,),
                       notes, mo)
 
-    def quantile(self, text: str, q: float) -> Answer:
+    def _quantile(self, text: str, q: float) -> Answer:
         e = self._expr(text)
+        pr = self._pred_only(e)
+        if pr is not None:
+            pv, notes = self._predictive(pr)
+            return Answer("quantile", f"{q:g} quantile of a new {pr.name}", (pv.quantile(q),),
+                          (None,), notes, pv)
         post, notes = self.posterior()
         est = questions.quantile(post, e, q)
         return Answer("quantile", f"{q:g} quantile of {text.strip()}", (est.value,),
                       (est.error,), notes, est)
 
-    def evidence(self) -> Answer:
+    def _evidence(self) -> Answer:
         post, notes = self.posterior()
         if post.log_evidence is None:
             why = "; ".join(post.compiled.improper) or "the prior is improper"
             raise ComputeError(f"the evidence is not defined: {why}")
         ev = post.log_evidence
         return Answer("evidence", "log evidence", (ev.value,), (ev.error,), notes, ev)
+
+    # -- questions, with the what-if layer -------------------------------------------
+    def _ask(self, method, *args):
+        """Answer on the current state; inside a what-if layer also on the state
+        from before it ("now"), side by side."""
+        ans = method(*args)
+        if self._whatif is None:
+            return ans
+        base, stack = self._whatif
+        cur, cur_stack, cache = self.state, self.undo_stack, self._compiled_cache
+        try:
+            self.state, self.undo_stack = base, list(stack)
+            now = method(*args)
+            self._whatif = (self.state, stack)   # keep a recomputation of "now"
+        finally:
+            self.state, self.undo_stack, self._compiled_cache = cur, cur_stack, cache
+        return replace(ans, now=now)
+
+    def summary(self) -> Summary:
+        return self._ask(self._summary)
+
+    def interval(self, name: str, level: float = 0.95, kind: str = "central") -> Answer:
+        if self._prediction(name) is not None:
+            return self._ask(self._pred_interval, name, level, kind)
+        return self._ask(self._interval, name, level, kind)
+
+    def mode(self) -> Answer:
+        return self._ask(self._mode)
+
+    def prob(self, text: str) -> Answer:
+        return self._ask(self._prob, text)
+
+    def mean(self, text: str) -> Answer:
+        return self._ask(self._mean, text)
+
+    def sd(self, text: str) -> Answer:
+        return self._ask(self._sd, text)
+
+    def quantile(self, text: str, q: float) -> Answer:
+        return self._ask(self._quantile, text, q)
+
+    def evidence(self) -> Answer:
+        return self._ask(self._evidence)
+
+    # -- data arriving ----------------------------------------------------------------
+    def data_append(self, name: str, texts: list[str], *, progress=None) -> Change:
+        """New values at the end of column `name`; the posterior is updated from the
+        new rows alone when it is current."""
+        s = self.state
+        col = s.data.get(name)
+        vals = typed_column(name, texts)
+        data = s.data.append(name, vals)
+        return self._after_append(data, f"appended {len(vals)} value"
+                                  f"{'s' if len(vals) != 1 else ''} to `{name}` "
+                                  f"({col.rows + len(vals)} rows now)", progress)
+
+    def data_append_file(self, path: str, prefix: str | None = None, *, progress=None) -> Change:
+        """The rows of a CSV file at the end of the table loaded with the same header."""
+        s = self.state
+        table = read_csv(self.resolve(path))
+        t = s.data.table_for_header(table.header, (prefix + "_") if prefix else None)
+        if t is None:
+            raise ModelError(f"no loaded table has the columns of `{os.path.basename(path)}` "
+                             f"({', '.join(table.header)}); load it first with `data load`")
+        rec = FileRecord(path, table.sha256, table.rows, tuple(t.prefix + h for h in table.header),
+                         "append")
+        data = s.data.append_table(t, table.columns, rec)
+        return self._after_append(data, f"appended {table.rows} row"
+                                  f"{'s' if table.rows != 1 else ''} from "
+                                  f"`{os.path.basename(path)}` to table `{t.name}`", progress)
+
+    def _after_append(self, data: DataSet, message: str, progress) -> Change:
+        s = self.state
+        post = s.posterior
+        current = post is not None and s.basis == _basis(s)
+        if not current or post.logp is None:
+            notes = self._data_notes(s.model, data)
+            self._commit(replace(s, data=data))
+            return Change(message, notes)
+        try:
+            old = self.compiled()
+            old_rows = {part.key: part.rows for part in old.likelihood}
+            full = compile_model(s.model, data)
+            inc = compile_model(s.model, data, rows_from=old_rows)
+        except QuadratError as exc:
+            self._commit(replace(s, data=data))
+            return Change(message, (f"{exc}; the posterior waits until the columns agree",))
+        delta = np.empty(post.grid.size)
+        grid = post.grid
+        for start, stop in grid.blocks(1 << 20):
+            idx = grid.indices(start, stop)
+            theta = [a.values[i] for a, i in zip(grid.axes, idx)]
+            with np.errstate(all="ignore"):
+                delta[start:stop] = inc.log_likelihood(theta)
+        with np.errstate(invalid="ignore"):
+            logp = post.logp + delta
+        logp[np.isneginf(post.logp)] = -np.inf
+        new_post = compute_posterior(full, grid, logp=logp, progress=progress)
+        notes: list[str] = ["posterior updated from the new rows alone"]
+        ns = replace(s, data=data, posterior=new_post, steps=())
+        edge = max((max(v) for v in new_post.diagnostics.edge_mass.values()), default=0.0)
+        if edge > 10 * EDGE_MASS_AUTO:
+            ag = auto_grid(full)
+            grid2 = build_grid(full.params, ag.specs, rule=s.rule)
+            self._check_cost(full, grid2)
+            new_post = compute_posterior(full, grid2, progress=progress)
+            lines = "; ".join(a.describe() for a in grid2.axes)
+            notes = [f"the mass moved toward an edge of the grid ({edge:.2g}); grid re-sized: "
+                     f"{lines}"]
+            ns = replace(ns, specs=ag.specs, posterior=new_post)
+        ns = replace(ns, basis=_basis(ns))
+        self._commit(ns)
+        self._compiled_cache = ((id(ns.model), id(ns.data)), full, ns.model, ns.data)
+        return Change(message, tuple(notes) + self._warnings(new_post))
+
+    # -- what-if ------------------------------------------------------------------------
+    def whatif_begin(self) -> Change:
+        if self._whatif is not None:
+            raise QuadratError("already in a what-if layer; `whatif end` first")
+        self._whatif = (self.state, list(self.undo_stack))
+        return Change("what-if: the data commands that follow are hypothetical; questions "
+                      "answer now and what-if side by side; `whatif end` drops the layer")
+
+    def whatif_end(self) -> Change:
+        if self._whatif is None:
+            raise QuadratError("not in a what-if layer")
+        self.state, self.undo_stack = self._whatif[0], list(self._whatif[1])
+        self._whatif = None
+        self._compiled_cache = None
+        return Change("what-if dropped: everything is as it was before `whatif`")
+
+    @property
+    def in_whatif(self) -> bool:
+        return self._whatif is not None
+
+    # -- model comparison ----------------------------------------------------------------
+    def keep(self, name: str) -> Change:
+        try:
+            check_name(name, "keep name")
+        except FormulaError as exc:
+            raise ModelError(str(exc)) from None
+        post, notes = self.posterior()
+        s = self.state
+        k = Kept(name, post.log_evidence, post.compiled.improper, self._data_key(),
+                 self._data_rows(), self._model_lines(), self._wide_priors(post),
+                 post.grid.size)
+        replaced = any(x.name == name for x in s.keeps)
+        keeps = tuple(x for x in s.keeps if x.name != name) + (k,)
+        self._commit(replace(s, keeps=keeps))
+        ev = (f"log evidence {post.log_evidence.value:.6g}" if post.log_evidence
+              else "no evidence (improper prior)")
+        return Change(f"model kept as `{name}`{' (replaced)' if replaced else ''}: {ev}",
+                      notes)
+
+    def compare(self, a: str, b: str) -> Comparison:
+        s = self.state
+        kept = {k.name: k for k in s.keeps}
+        for n in (a, b):
+            if n not in kept:
+                raise ModelError(f"no kept model `{n}`; keep one with `keep NAME`")
+        ka, kb = kept[a], kept[b]
+        for k in (ka, kb):
+            if k.log_evidence is None:
+                why = "; ".join(k.improper) or "its prior is improper"
+                raise ComputeError(f"`{k.name}` has no evidence ({why}): a Bayes factor needs "
+                                   "proper priors")
+        if ka.data_key != kb.data_key:
+            raise ComputeError(f"`{a}` and `{b}` were fitted to different data ({ka.data_rows} "
+                               f"vs {kb.data_rows}): their evidences cannot be compared")
+        ea, eb = ka.log_evidence, kb.log_evidence
+        err = None
+        if ea.error is not None and eb.error is not None:
+            err = ea.error + eb.error
+        notes = list(ka.cautions) + [c for c in kb.cautions if c not in ka.cautions]
+        return Comparison(ka, kb, Estimate(ea.value - eb.value, err, "difference"), tuple(notes))
+
+    def _data_key(self) -> str:
+        import hashlib
+        s = self.state
+        h = hashlib.sha256()
+        cols = set()
+        for lk in s.model.likelihoods:
+            if lk.column is not None:
+                cols.add(lk.column)
+            else:
+                cols |= {x.name for x in lk.log.free_symbols} & set(s.data.names)
+        for c in sorted(cols):
+            h.update(c.encode())
+            h.update(np.ascontiguousarray(s.data.values(c)).tobytes())
+        return h.hexdigest()
+
+    def _data_rows(self) -> str:
+        s = self.state
+        parts = [f"`{lk.column}` {s.data.get(lk.column).rows} rows" for lk in s.model.likelihoods
+                 if lk.column is not None and lk.column in s.data]
+        return ", ".join(parts) or "no data"
+
+    def _model_lines(self) -> tuple[str, ...]:
+        m = self.state.model
+        out = [f"param {p.name} {p.describe()}" for p in m.params]
+        out += [f"prior {pr.target} ~ {pr.text}" if pr.target else f"prior log {pr.text}"
+                for pr in m.priors]
+        out += [f"likelihood {lk.column} ~ {lk.text}" if lk.column else f"likelihood log {lk.text}"
+                for lk in m.likelihoods]
+        return tuple(out)
+
+    def _wide_priors(self, post: Posterior) -> tuple[str, ...]:
+        """Priors much wider than the posterior: the Bayes factor then depends on
+        the prior's width."""
+        out = []
+        m = self.state.model
+        named = {pr.target: pr for pr in m.priors if pr.target}
+        for p in m.params:
+            if p.discrete:
+                continue
+            post_sd = post.marginals[p.name].sd
+            if not post_sd > 0:
+                continue
+            pr = named.get(p.name)
+            prior_sd = None
+            if pr is None and p.bounded:
+                prior_sd = (p.hi - p.lo) / math.sqrt(12)
+            elif pr is not None and all(not a.free_symbols for a in pr.args):
+                try:
+                    with np.errstate(all="ignore"):
+                        prior_sd = float(fam.get(pr.family).scipy(*[float(a) for a in pr.args]).std())
+                except (TypeError, ValueError):
+                    prior_sd = None
+            if prior_sd is None or not math.isfinite(prior_sd):
+                if pr is not None and pr.family in ("cauchy", "half_cauchy", "student_t"):
+                    out.append(f"the prior of `{p.name}` has heavy tails: the Bayes factor "
+                               "depends on its scale")
+                continue
+            if prior_sd > 100 * post_sd:
+                out.append(f"the prior of `{p.name}` is {prior_sd / post_sd:.0f} times wider than "
+                           "its posterior: the Bayes factor depends on the prior's width")
+        return tuple(out)
+
+    # -- prediction -----------------------------------------------------------------------
+    def _prediction(self, name: str) -> Prediction | None:
+        for p in self.state.predictions:
+            if p.name == name:
+                return p
+        return None
+
+    def predict(self, name: str, text: str) -> Answer:
+        """The posterior predictive of a new observation ``name ~ FAMILY(args)``; later
+        `prob`, `mean`, `sd`, `quantile` and `interval` questions about `name` use it."""
+        try:
+            check_name(name, "predicted name")
+        except FormulaError as exc:
+            raise ModelError(str(exc)) from None
+        s = self.state
+        other = s.model.taken(name)
+        if other in ("parameter", "let"):
+            raise ModelError(f"`{name}` is already a {other}")
+        names = {p.name: p.symbol for p in s.model.params}
+        names.update({l_.name: sp.Symbol(l_.name, real=True) for l_ in s.model.lets})
+        fname, args = parse_call(text, names, fam.FAMILIES)
+        f = fam.get(fname)
+        if len(args) != len(f.params):
+            raise ModelError(f"`{fname}` takes {len(f.params)} argument"
+                             f"{'s' if len(f.params) != 1 else ''} ({', '.join(f.params)}), "
+                             f"got {len(args)}")
+        fam.check_constant_args(f, args)
+        pr = Prediction(name, fname, args, text.strip())
+        ans = self._ask(self._pred_answer, pr)
+        preds = tuple(p for p in s.predictions if p.name != name) + (pr,)
+        new = replace(self.state, predictions=preds)
+        self._commit(new)
+        if self._whatif is not None:
+            base, stack = self._whatif
+            bp = tuple(p for p in base.predictions if p.name != name) + (pr,)
+            self._whatif = (replace(base, predictions=bp), stack)
+        return ans
+
+    def _predictive(self, pr: Prediction):
+        from .predict import predictive
+        post, notes = self.posterior()
+        return predictive(post, pr.name, pr.family, pr.args, self.state.model), notes
+
+    def _pred_answer(self, pr: Prediction) -> Answer:
+        pv, notes = self._predictive(pr)
+        lo, hi = pv.quantile(0.025), pv.quantile(0.975)
+        return Answer("predict", f"new {pr.name} ~ {pr.text}", (pv.mean, pv.sd, lo, hi),
+                      (None, None, None, None), notes, pv)
+
+    def _pred_interval(self, name: str, level: float, kind: str) -> Answer:
+        if kind != "central":
+            raise ComputeError("a predicted observation has central intervals only")
+        pv, notes = self._predictive(self._prediction(name))
+        a = (1 - level) / 2
+        lo, hi = pv.quantile(a), pv.quantile(1 - a)
+        return Answer("interval", f"{level:g} central interval of new {name}", (lo, hi),
+                      (None, None), notes, pv)
+
+    def samplesize(self, name: str, width: float, *, level: float = 0.95, max_n: int = 10_000,
+                   using: str | None = None, sims: int = 200, seed: int = 1,
+                   kind: str = "central", progress=None):
+        """How many further observations until the expected width of the `level`
+        interval of `name` is at most `width` (average length criterion)."""
+        from .predict import sample_size
+        s = self.state
+        s.model.param(name)
+        use = None
+        if using is not None:
+            col, _, rest = using.partition("~")
+            col = col.strip()
+            if not rest.strip():
+                raise ModelError("`using` needs COL ~ FAMILY(args)")
+            try:
+                check_name(col, "column name")
+            except FormulaError as exc:
+                raise ModelError(str(exc)) from None
+            names = {p.name: p.symbol for p in s.model.params}
+            names.update({l_.name: sp.Symbol(l_.name, real=True) for l_ in s.model.lets})
+            fname, args = parse_call(rest, names, fam.FAMILIES)
+            fam.check_constant_args(fam.get(fname), args)
+            use = (col, fname, args)
+        post, notes = self.posterior()
+        res = sample_size(post, s.model, name, width, level=level, max_n=max_n, using=use,
+                          data=s.data, sims=sims, seed=seed, kind=kind, progress=progress)
+        return res, notes
 
     # -- housekeeping -------------------------------------------------------------
     def undo(self) -> Change:
@@ -682,6 +1089,46 @@ class Workspace:
     def reset(self) -> Change:
         self._commit(State())
         return Change("reset: model, data, grid and posterior cleared (`undo` brings them back)")
+
+
+_REL = {sp.StrictLessThan: "<", sp.LessThan: "<=", sp.StrictGreaterThan: ">",
+        sp.GreaterThan: ">=", sp.Equality: "==", sp.Unequality: "!="}
+_FLIP = {"<": ">", "<=": ">=", ">": "<", ">=": "<=", "==": "==", "!=": "!="}
+
+
+def _predictive_prob(pv, cond, name: str) -> float:
+    """P(cond) for a condition on one predicted observation: comparisons with
+    numbers, or a range `a < y < b`."""
+    sym = sp.Symbol(name, real=True)
+    parts = list(cond.args) if isinstance(cond, sp.And) else [cond]
+    lo = (-math.inf, True)   # (bound, inclusive)
+    hi = (math.inf, True)
+    eqs = []
+    for c in parts:
+        if type(c) not in _REL:
+            raise ComputeError(f"a condition on the predicted `{name}` compares it with numbers "
+                               f"(as in {name} > 5, or 2 <= {name} <= 8)")
+        op = _REL[type(c)]
+        if c.lhs == sym and c.rhs.is_number:
+            x = float(c.rhs)
+        elif c.rhs == sym and c.lhs.is_number:
+            x, op = float(c.lhs), _FLIP[op]
+        else:
+            raise ComputeError(f"a condition on the predicted `{name}` compares it with numbers "
+                               f"(as in {name} > 5, or 2 <= {name} <= 8)")
+        if op in ("==", "!="):
+            eqs.append((op, x))
+        elif op in (">", ">="):
+            lo = max(lo, (x, op == ">="), key=lambda t: (t[0], not t[1]))
+        else:
+            hi = min(hi, (x, op == "<="), key=lambda t: (t[0], t[1]))
+    if eqs:
+        if len(parts) != 1:
+            raise ComputeError("`==` and `!=` on a predicted observation stand alone")
+        return pv.prob(*eqs[0])
+    p_hi = 1.0 if hi[0] == math.inf else pv.prob("<=" if hi[1] else "<", hi[0])
+    p_lo = 0.0 if lo[0] == -math.inf else pv.prob("<" if lo[1] else "<=", lo[0])
+    return max(p_hi - p_lo, 0.0)
 
 
 def _bytes(n: float) -> str:

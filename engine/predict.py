@@ -1,0 +1,461 @@
+"""Posterior predictions of new observations, and how many more are needed.
+
+`predictive` mixes a family's distribution over the grid with the posterior
+weights: its cdf, pmf or density, mean, sd and quantiles are exact sums over the
+grid points (no sampling). `sample_size` finds how many further observations
+make the expected width of an interval fall below a target: the average length
+criterion of Joseph, Wolfson and du Berger (1995), by simulation with a seed;
+each simulated data set updates the posterior on the same grid through the
+likelihood's sufficient statistics.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, replace
+from typing import Callable, Sequence
+
+import numpy as np
+import sympy as sp
+from scipy import optimize
+
+from . import families as fam
+from .data import Column, DataSet
+from .errors import ComputeError, ModelError
+from .grid import Grid
+from .model import (Compiled, Likelihood, Model, ReducedTerm, RowTerm, compile_model,
+                    expand_lets, param_function)
+from .posterior import Marginal, Posterior, evaluate_block
+from .questions import walk
+
+#: The predictive mixes over the grid points holding all but this much mass.
+MIX_TAIL = 1e-13
+#: Most grid points a predictive mixes over.
+MIX_MAX = 2_000_000
+
+
+@dataclass(frozen=True)
+class Predictive:
+    """The posterior predictive distribution of one new observation.
+
+    Attributes
+    ----------
+    name : str
+    family : str
+    discrete : bool
+    values : ndarray
+        Support points (discrete) or a plotting mesh (continuous).
+    density : ndarray
+        pmf at `values` (discrete) or density (continuous).
+    mean, sd : float
+        ``nan`` where the family's moments do not exist (e.g. cauchy).
+    """
+
+    name: str
+    family: str
+    discrete: bool
+    values: np.ndarray
+    density: np.ndarray
+    mean: float
+    sd: float
+    _weights: np.ndarray
+    _args: tuple[np.ndarray, ...]
+
+    def dist(self, sl=slice(None)):
+        return fam.get(self.family).scipy(*[a[sl] for a in self._args])
+
+    def cdf(self, y: float) -> float:
+        """P(new observation <= y)."""
+        total = 0.0
+        for sl in _chunks(len(self._weights)):
+            with np.errstate(all="ignore"):
+                c = np.nan_to_num(self.dist(sl).cdf(y), nan=0.0)
+            total += float(np.dot(self._weights[sl], c))
+        return min(max(total, 0.0), 1.0)
+
+    def pmf(self, y: float) -> float:
+        total = 0.0
+        for sl in _chunks(len(self._weights)):
+            with np.errstate(all="ignore"):
+                d = self.dist(sl)
+                v = d.pmf(y) if self.discrete else np.zeros(1)
+            total += float(np.dot(self._weights[sl], np.nan_to_num(v)))
+        return total
+
+    def quantile(self, q: float) -> float:
+        if not 0 < q < 1:
+            raise ComputeError(f"quantile level must be between 0 and 1; got {q:g}")
+        if self.discrete:
+            c = np.cumsum(self.density)
+            i = int(np.searchsorted(c, q - 1e-12))
+            if i < len(self.values):
+                return float(self.values[i])
+            return float(self.values[-1])
+        lo, hi = float(self.values[0]), float(self.values[-1])
+        span = hi - lo
+        while self.cdf(lo) > q:
+            lo -= span
+            span *= 2
+        span = hi - lo
+        while self.cdf(hi) < q:
+            hi += span
+            span *= 2
+        return float(optimize.brentq(lambda y: self.cdf(y) - q, lo, hi, xtol=1e-12 * max(1, abs(hi)),
+                                     rtol=1e-12))
+
+    def prob(self, op: str, c: float) -> float:
+        """P(y OP c) for OP in <, <=, >, >=, ==, !=."""
+        if self.discrete:
+            le = self.cdf(c)
+            lt = self.cdf(math.ceil(c) - 1) if float(c).is_integer() else le
+            eq = self.pmf(c) if float(c).is_integer() else 0.0
+        else:
+            le = lt = self.cdf(c)
+            eq = 0.0
+        return {"<": lt, "<=": le, ">": 1 - le, ">=": 1 - lt, "==": eq, "!=": 1 - eq}[op]
+
+
+def _chunks(n: int, size: int = 200_000):
+    for a in range(0, n, size):
+        yield slice(a, min(n, a + size))
+
+
+def _mixture_points(post: Posterior) -> tuple[list[np.ndarray], np.ndarray]:
+    """Grid points and normalised weights holding all but `MIX_TAIL` of the mass."""
+    thetas: list[list[np.ndarray]] = [[] for _ in post.grid.axes]
+    ws = []
+    for idx, theta, w in walk(post):
+        keep = w[0] > 0
+        for k, t in enumerate(theta):
+            thetas[k].append(t[keep])
+        ws.append(w[0][keep])
+    w = np.concatenate(ws)
+    th = [np.concatenate(t) for t in thetas]
+    order = np.argsort(w)
+    c = np.cumsum(w[order])
+    drop = int(np.searchsorted(c, MIX_TAIL * c[-1]))
+    keep = order[drop:]
+    if len(keep) > MIX_MAX:
+        keep = order[-MIX_MAX:]
+    w = w[keep]
+    return [t[keep] for t in th], w / w.sum()
+
+
+def predictive(post: Posterior, name: str, family: str, args: Sequence[sp.Expr],
+               model: Model) -> Predictive:
+    """The posterior predictive of one new observation ``name ~ family(args)``.
+
+    `args` are expressions of the parameters and lets (numbers for covariates).
+    """
+    f = fam.get(family)
+    if len(args) != len(f.params):
+        raise ModelError(f"`{family}` takes {len(f.params)} argument"
+                         f"{'s' if len(f.params) != 1 else ''} ({', '.join(f.params)}), "
+                         f"got {len(args)}")
+    params = post.compiled.params
+    pnames = {p.name for p in params}
+    fns = []
+    for a in args:
+        e = expand_lets(a, model)
+        bad = {s.name for s in e.free_symbols} - pnames
+        if bad:
+            raise ModelError(f"predict: `{sorted(bad)[0]}` is a data column; give the new "
+                             "row's values as numbers")
+        fns.append(param_function(e, params))
+    theta, w = _mixture_points(post)
+    argv = tuple(np.asarray(fn(theta), float) for fn in fns)
+    # keep only points where the arguments are valid for the family
+    with np.errstate(all="ignore"):
+        x = sp.Dummy("x")
+        term = f.logpdf(x, *[sp.Symbol(f"a{i}", real=True) for i in range(len(args))])
+    ok = np.ones(len(w), bool)
+    for a in argv:
+        ok &= np.isfinite(a)
+    if not ok.any():
+        raise ComputeError(f"predict: the arguments of `{family}` are not finite anywhere")
+    dist = f.scipy(*[a[ok] for a in argv])
+    w = w[ok] / w[ok].sum()
+    argv = tuple(a[ok] for a in argv)
+    with np.errstate(all="ignore"):
+        means = np.asarray(dist.mean(), float)
+        var = np.asarray(dist.var(), float)
+    if np.all(np.isfinite(means)):
+        mean = float(np.dot(w, means))
+        sd = float(math.sqrt(max(np.dot(w, var + means**2) - mean**2, 0.0))) \
+            if np.all(np.isfinite(var)) else math.nan
+    else:
+        mean = sd = math.nan
+    pred = Predictive(name, family, f.discrete, np.zeros(0), np.zeros(0), mean, sd, w, argv)
+    if f.discrete:
+        lo = _int_quantile(pred, 1e-12, low=True)
+        hi = _int_quantile(pred, 1 - 1e-12, low=False)
+        if hi - lo > 100_000:
+            hi = lo + 100_000
+        vals = np.arange(lo, hi + 1, dtype=float)
+        pm = np.zeros(len(vals))
+        for sl in _chunks(len(w), max(1, 2_000_000 // max(len(vals), 1))):
+            d = pred.dist(sl)
+            with np.errstate(all="ignore"):
+                pm += np.nan_to_num(np.einsum("k,vk->v", w[sl], d.pmf(vals[:, None])))
+        return replace(pred, values=vals, density=pm)
+    a = pred.quantile(1e-4)
+    b = pred.quantile(1 - 1e-4)
+    vals = np.linspace(a, b, 401)
+    dens = np.zeros(len(vals))
+    for sl in _chunks(len(w), max(1, 2_000_000 // len(vals))):
+        d = pred.dist(sl)
+        with np.errstate(all="ignore"):
+            dens += np.nan_to_num(np.einsum("k,vk->v", w[sl], d.pdf(vals[:, None])))
+    return replace(pred, values=vals, density=dens)
+
+
+def _int_quantile(pred: Predictive, q: float, *, low: bool) -> int:
+    """Integer quantile of a discrete predictive by bracketing and bisection."""
+    with np.errstate(all="ignore"):
+        qs = np.asarray(pred.dist().ppf(q), float)
+    qs = qs[np.isfinite(qs)]
+    guess = int(np.min(qs) if low else np.max(qs)) if qs.size else 0
+    return guess
+
+
+# ---------------------------------------------------------------------------
+# sample size
+
+@dataclass(frozen=True)
+class SampleSizeStep:
+    n: int
+    width: float
+    mc_error: float
+
+
+@dataclass(frozen=True)
+class SampleSize:
+    """How many further observations make the interval narrow enough.
+
+    Attributes
+    ----------
+    n : int or None
+        The smallest number of further observations whose expected interval width is
+        at most the target (None if not reached by `max_n`).
+    width : float
+        Expected width at `n` (or at `max_n`).
+    mc_error : float
+        Its Monte Carlo standard error.
+    steps : tuple of SampleSizeStep
+        Every n tried.
+    message : str
+    """
+
+    n: int | None
+    width: float
+    mc_error: float
+    steps: tuple[SampleSizeStep, ...]
+    message: str
+    sims: int
+    seed: int
+
+
+def future_likelihood(model: Model, data: DataSet, using: tuple[str, str, tuple] | None
+                      ) -> tuple[str, str, tuple[sp.Expr, ...]]:
+    """The likelihood future rows follow: `using` (column, family, args) if given,
+    else the model's only likelihood, if its arguments read no data column."""
+    if using is not None:
+        return using
+    lks = [lk for lk in model.likelihoods if lk.column is not None]
+    if len(lks) != 1 or len(model.likelihoods) != 1:
+        raise ModelError("the future rows are ambiguous (several likelihood terms); name them "
+                         "with `using COL ~ FAMILY(args)`")
+    lk = lks[0]
+    cols = set(data.names)
+    for a in lk.args:
+        used = {s.name for s in expand_lets(a, model).free_symbols} & cols
+        if used:
+            raise ModelError(f"the future rows are ambiguous: the likelihood of `{lk.column}` "
+                             f"reads column `{sorted(used)[0]}`; name them with "
+                             "`using COL ~ FAMILY(args)`")
+    if lk.censor:
+        raise ModelError("the likelihood has censored rows; name the future rows with "
+                         "`using COL ~ FAMILY(args)`")
+    return lk.column, lk.family, lk.args
+
+
+def sample_size(post: Posterior, model: Model, name: str, width: float, *, level: float = 0.95,
+                max_n: int = 10_000, using: tuple[str, str, tuple] | None = None,
+                data: DataSet | None = None, sims: int = 200, seed: int = 1,
+                kind: str = "central", progress: Callable[[int, int], None] | None = None
+                ) -> SampleSize:
+    """Average length criterion by simulation (Joseph, Wolfson and du Berger, 1995).
+
+    For each simulation a parameter value is drawn from the posterior (a grid
+    point, by its mass), then future observations from the likelihood's family at
+    that value; the posterior updated by the first ``n`` of them gives an interval
+    of `name`; the widths are averaged over simulations. The same draws serve every
+    ``n`` (common random numbers), so the expected width falls smoothly with ``n``.
+    """
+    if post.logp is None:
+        raise ComputeError("samplesize needs a grid small enough to keep its density "
+                           "(at most 16 million points)")
+    if not width > 0:
+        raise ComputeError(f"`width` must be positive; got {width:g}")
+    if not 0 < level < 1:
+        raise ComputeError(f"level must be between 0 and 1; got {level:g}")
+    if int(max_n) != max_n or max_n < 1:
+        raise ComputeError(f"`max` must be a whole number >= 1; got {max_n}")
+    max_n = int(max_n)
+    data = data if data is not None else DataSet()
+    col, family, args = future_likelihood(model, data, using)
+    f = fam.get(family)
+    params = post.compiled.params
+    grid = post.grid
+    if name not in grid.names:
+        raise ModelError(f"no parameter `{name}`")
+    if grid.axis(name).discrete and kind == "central":
+        pass
+    # the posteriors simulated are narrower than today's: refine the grid until the
+    # axis of `name` has about 25 nodes across the target width (nested doubling, so
+    # today's evaluations are reused), within a budget of points
+    post = _fine_enough(post, name, width)
+    grid = post.grid
+    rng = np.random.default_rng(seed)
+    # parameter draws: grid points by posterior mass
+    theta, w = _mixture_points(post)
+    pick = rng.choice(len(w), size=sims, p=w)
+    arg_fns = [param_function(expand_lets(a, model), params) for a in args]
+    draw_args = [np.asarray(fn([t[pick] for t in theta]), float) for fn in arg_fns]
+    # future rows as uniforms mapped through each draw's quantile function
+    U = rng.random((sims, max_n))
+    # the future likelihood, compiled once over a placeholder column
+    fut_model = Model(model.params, (), (Likelihood(col, family, tuple(args), None, None, ""),),
+                      model.lets)
+    placeholder_vals = np.asarray(f.scipy(*[a[0] for a in draw_args]).ppf(U[0, :1]), float)
+    ds = DataSet()
+    ds, _ = ds.with_column(Column(col, placeholder_vals))
+    try:
+        fut = compile_model(fut_model, ds)
+    except Exception as exc:  # the placeholder row may be off-support for other draws
+        raise ComputeError(f"cannot set up future rows of `{col}`: {exc}") from None
+    terms = [t for part in fut.likelihood for t in part.terms]
+    # grid points, their log weights and the axis index of `name`, once
+    flat_theta, lw, idx_name = [], [], []
+    k = grid.index(name)
+    for start, stop in grid.blocks(1 << 22):
+        idx = grid.indices(start, stop)
+        flat_theta.append([a.values[i] for a, i in zip(grid.axes, idx)])
+        l_ = np.zeros(stop - start)
+        for a, i in zip(grid.axes, idx):
+            l_ += a.logw[i]
+        lw.append(l_)
+        idx_name.append(idx[k])
+    TH = [np.concatenate([b[d] for b in flat_theta]) for d in range(len(grid.axes))]
+    LW = np.concatenate(lw)
+    IDX = np.concatenate(idx_name)
+    base = post.logp
+    ax = grid.axis(name)
+
+    def widths(n: int) -> np.ndarray:
+        out = np.empty(sims)
+        for s_ in range(sims):
+            with np.errstate(all="ignore"):
+                y = np.asarray(f.scipy(*[a[s_] for a in draw_args]).ppf(U[s_, :n]), float)
+            lp = base + _future_loglik(terms, TH, y, fut_model, col)
+            tot = lp + LW
+            m = np.max(tot)
+            wt = np.exp(tot - m)
+            mass = np.bincount(IDX, weights=wt, minlength=ax.n)
+            marg = Marginal(ax, mass)
+            if kind == "hpd":
+                pieces = marg.hpd(level)
+                out[s_] = sum(b - a for a, b in pieces)
+            else:
+                a, b = marg.central(level)
+                out[s_] = b - a
+        return out
+
+    steps: list[SampleSizeStep] = []
+    cache: dict[int, tuple[float, float]] = {}
+
+    def expected(n: int) -> tuple[float, float]:
+        if n not in cache:
+            ws = widths(n)
+            cache[n] = (float(np.mean(ws)), float(np.std(ws, ddof=1) / math.sqrt(sims))
+                        if sims > 1 else 0.0)
+            steps.append(SampleSizeStep(n, *cache[n]))
+            if progress is not None:
+                progress(len(steps), 0)
+        return cache[n]
+
+    # the current width, with no new rows
+    m0 = post.marginals[name]
+    w0 = (m0.central(level)[1] - m0.central(level)[0]) if kind == "central" else \
+        sum(b - a for a, b in m0.hpd(level))
+    if w0 <= width:
+        return SampleSize(0, w0, 0.0, (), f"the {level:g} interval of `{name}` is already "
+                          f"{w0:.4g} wide: no further observations are needed", sims, seed)
+    lo, hi = 0, 1
+    while True:
+        wv, _ = expected(hi)
+        if wv <= width:
+            break
+        if hi >= max_n:
+            wv, err = expected(max_n)
+            return SampleSize(None, wv, err, tuple(sorted(steps, key=lambda s: s.n)),
+                              f"not reached by {max_n:,} further observations (expected "
+                              f"width there {wv:.4g}); raise `max`", sims, seed)
+        lo, hi = hi, min(2 * hi, max_n)
+    while hi - lo > 1:
+        mid = (lo + hi) // 2
+        if expected(mid)[0] <= width:
+            hi = mid
+        else:
+            lo = mid
+    wv, err = expected(hi)
+    msg = ""
+    if abs(wv - width) < 2 * err:
+        msg = "the expected width is within two Monte Carlo errors of the target; more " \
+              "simulations would firm up n"
+    return SampleSize(hi, wv, err, tuple(sorted(steps, key=lambda s: s.n)), msg, sims, seed)
+
+
+#: Most points the grid of a sample-size search may have.
+SAMPLESIZE_POINTS = 1 << 20
+
+
+def _fine_enough(post: Posterior, name: str, width: float) -> Posterior:
+    from .posterior import compute
+    from .refine import refined_grid
+    ax = post.grid.axis(name)
+    if ax.discrete:
+        return post
+    current = post
+    while True:
+        a = current.grid.axis(name)
+        spacing = float(np.median(a.spacing()))
+        if spacing <= width / 25:
+            return current
+        nxt = refined_grid(current.grid, None)
+        if nxt.size > SAMPLESIZE_POINTS:
+            nxt = refined_grid(current.grid, name)
+            if nxt.size > SAMPLESIZE_POINTS:
+                return current
+        current = compute(current.compiled, nxt, reuse=current, pairs=[])
+
+
+def _future_loglik(terms, TH, y: np.ndarray, fut_model: Model, col: str) -> np.ndarray:
+    """Log-likelihood of the future rows `y` at every grid point: through the
+    sufficient statistics where they apply, else row by row."""
+    n = len(y)
+    try:
+        total = np.zeros(len(TH[0]))
+        for t in terms:
+            if isinstance(t, ReducedTerm):
+                total += t.restat({col: y}, n)(TH)
+            elif isinstance(t, RowTerm):
+                if len(t.columns) != 1:
+                    raise ValueError
+                total += replace(t, columns=(np.asarray(y, float),))(TH)
+            else:
+                total += t(TH)
+        return total
+    except ValueError:
+        ds, _ = DataSet().with_column(Column(col, np.asarray(y, float)))
+        return compile_model(fut_model, ds, reduce=False).log_likelihood(TH)
