@@ -299,13 +299,14 @@ _MODULES = [S.NAMESPACE, "scipy", "numpy"]
 
 
 def _lambdify(args: Sequence[sp.Symbol], expr: sp.Basic) -> Callable:
-    # the generated code holds only placeholder names (t0, c0, s0) and numbers:
+    # the generated code holds only placeholder names (_t0, _c0, _s0) and numbers:
     # no text a user typed reaches it
     return sp.lambdify(list(args), expr, modules=_MODULES, cse=True)
 
 
 def _placeholders(prefix: str, n: int) -> list[sp.Symbol]:
-    return [sp.Symbol(f"{prefix}{i}", real=True) for i in range(n)]
+    # a leading underscore: no user name can take it (names start with a letter)
+    return [sp.Symbol(f"_{prefix}{i}", real=True) for i in range(n)]
 
 
 def _as_array(v, n: int, dtype=float) -> np.ndarray:
@@ -515,6 +516,46 @@ class Compiled:
     notes: tuple[str, ...]
     free_prior: bool = False
     model: Model = field(default_factory=Model, repr=False, compare=False)
+    #: The log-density as sympy terms ``(expr, column names, column arrays)`` for
+    #: symbolic derivatives; None where a term has no symbolic form.
+    symbolic: tuple | None = field(default=None, repr=False, compare=False)
+    _cache: dict = field(default_factory=dict, repr=False, compare=False)
+
+    def curvature(self, point: dict[str, float]) -> tuple[np.ndarray, np.ndarray] | None:
+        """Gradient and Hessian of the log posterior in the continuous parameters
+        at `point`, found symbolically (sympy), or None where that is not possible
+        (a term without derivatives, or values that are not finite)."""
+        cont = [p for p in self.params if not p.discrete]
+        if self.symbolic is None or not cont:
+            return None
+        if "curv" not in self._cache:
+            self._cache["curv"] = _curvature_functions(self.symbolic, self.params, cont)
+        fns = self._cache["curv"]
+        if fns is None:
+            return None
+        d = len(cont)
+        g = np.zeros(d)
+        H = np.zeros((d, d))
+        th = [np.array([point[p.name]], float) for p in self.params]
+        with np.errstate(all="ignore"):
+            for gfn, hfn, cols in fns:
+                rows = max((len(c) for c in cols), default=1)
+                targs = [t[:, None] for t in th] + [c[None, :] for c in cols]
+                gv = [np.sum(np.broadcast_to(np.asarray(f(*targs), float), (1, rows)))
+                      for f in gfn]
+                hv = [np.sum(np.broadcast_to(np.asarray(f(*targs), float), (1, rows)))
+                      for f in hfn]
+                g += np.array(gv)
+                k = 0
+                for i in range(d):
+                    for j in range(i, d):
+                        H[i, j] += hv[k]
+                        if i != j:
+                            H[j, i] += hv[k]
+                        k += 1
+        if not (np.all(np.isfinite(g)) and np.all(np.isfinite(H))):
+            return None
+        return g, H
 
     @property
     def dims(self) -> int:
@@ -687,7 +728,7 @@ def _reduce_sum(expr, conds, psyms, csyms, colvals):
     defs: list[tuple[str, sp.Expr]] = []
 
     def stat(value: float, kind: str, e: sp.Expr) -> sp.Symbol:
-        s = sp.Symbol(f"s{len(stats)}", real=True)
+        s = sp.Symbol(f"_s{len(stats)}", real=True)
         stats.append(float(value))
         stat_syms.append(s)
         defs.append((kind, e))
@@ -847,6 +888,8 @@ def compile_model(model: Model, data: DataSet, *, reduce: bool = True,
     prior_const = 0.0
     named = {pr.target: pr for pr in model.priors if pr.target is not None}
     free_priors = [pr for pr in model.priors if pr.target is None]
+    symbolic: list = []
+    symbolic_ok = True
 
     def lets_out(e, what):
         e = expand_lets(e, model)
@@ -878,6 +921,7 @@ def compile_model(model: Model, data: DataSet, *, reduce: bool = True,
             if c in (sp.false, False):
                 raise ModelError(f"prior of `{p.name}`: `{f.name}` needs {'; '.join(f.constraints)}")
         prior_terms.append(_param_term(term.expr, pconds, params))
+        symbolic.append((term.expr, (), ()))
         # truncation to the domain, renormalised
         arg_const = all(not a.free_symbols for a in args)
         needs = p.discrete or math.isfinite(p.lo) or math.isfinite(p.hi)
@@ -900,6 +944,7 @@ def compile_model(model: Model, data: DataSet, *, reduce: bool = True,
                 notes.append(f"prior of `{p.name}` is truncated to its domain and renormalised: "
                              f"{1 - mass:.3g} of its mass was cut")
         elif needs:
+            symbolic_ok = False
             prior_terms.append(TruncationTerm(
                 f.name, tuple(param_function(a, params) for a in args), p.lo, p.hi,
                 p.values if p.discrete else None))
@@ -909,6 +954,7 @@ def compile_model(model: Model, data: DataSet, *, reduce: bool = True,
     for pr in free_priors:
         e = lets_out(pr.log, "`prior log`")
         prior_terms.append(_param_term(e, [], params))
+        symbolic.append((e, (), ()))
     if free_priors and not all(p.bounded or p.discrete for p in params):
         unb = [p.name for p in params if not (p.bounded or p.discrete)]
         improper.append(f"a free `prior log` term with unbounded `{unb[0]}`: quadrat cannot "
@@ -971,6 +1017,7 @@ def compile_model(model: Model, data: DataSet, *, reduce: bool = True,
                 const, _, pconds, mixed = _split_conds(t.conds, pset, dset)
                 if rows_from is None or key not in rows_from:
                     terms.append(_param_term(t.expr, pconds + mixed, params))
+                    symbolic.append((t.expr, (), ()))
                 continue
             colvals = [np.ascontiguousarray(data.values(n)[sel]) for n in cols]
             if not sel.any():
@@ -982,9 +1029,38 @@ def compile_model(model: Model, data: DataSet, *, reduce: bool = True,
                                      f"{'; '.join(f.constraints) if f else str(c)}")
             _check_data_conds(donly, csyms, colvals, where, f, cols)
             terms.extend(_sum_terms(t.expr, mixed, params, csyms, colvals, reduce=reduce))
+            rc = tuple(n for n, cs in zip(cols, csyms) if cs in t.expr.free_symbols)
+            symbolic.append((t.expr, rc, tuple(colvals[cols.index(n)] for n in rc)))
             if pconds:
                 terms.append(_param_term(sp.Integer(0), pconds, params))
         parts.append(LikelihoodPart(key, tuple(terms), nrows))
 
     return Compiled(tuple(params), tuple(prior_terms), prior_const, tuple(parts),
-                    not improper, tuple(improper), tuple(notes), bool(free_priors), model)
+                    not improper, tuple(improper), tuple(notes), bool(free_priors), model,
+                    tuple(symbolic) if symbolic_ok else None)
+
+
+def _curvature_functions(symbolic, params, cont):
+    """Compiled gradient and Hessian (upper triangle) of each symbolic term, or None
+    if some derivative cannot be taken symbolically."""
+    psyms = [p.symbol for p in params]
+    csyms = [p.symbol for p in cont]
+    tp = _placeholders("t", len(psyms))
+    sub = dict(zip(psyms, tp))
+    out = []
+    try:
+        for expr, colnames, colvals in symbolic:
+            cp = _placeholders("c", len(colnames))
+            csub = {sp.Symbol(n, real=True): c for n, c in zip(colnames, cp)}
+            grads = [sp.diff(expr, x) for x in csyms]
+            hess = [sp.diff(grads[i], csyms[j]) for i in range(len(csyms))
+                    for j in range(i, len(csyms))]
+            for e in grads + hess:
+                if e.has(sp.Derivative, sp.Subs):
+                    return None
+            gf = [_lambdify(tp + cp, e.xreplace(sub).xreplace(csub)) for e in grads]
+            hf = [_lambdify(tp + cp, e.xreplace(sub).xreplace(csub)) for e in hess]
+            out.append((gf, hf, tuple(colvals)))
+    except (TypeError, ValueError, NotImplementedError, AttributeError):
+        return None
+    return out

@@ -715,8 +715,7 @@ def _finish(compiled, grid, acc, levels, pairs, best_flat, best_lp, zero, logp_a
         if a.discrete:
             continue
         m = marg[a.name]
-        edge[a.name] = (_edge_mass(m.mass[0], m.mass[1] if a.n > 1 else 0.0),
-                        _edge_mass(m.mass[-1], m.mass[-2] if a.n > 1 else 0.0))
+        edge[a.name] = _edge_masses(m)
         sd = m.sd
         if sd > 0 and a.n > 1:
             h = np.median(a.spacing())
@@ -767,13 +766,35 @@ def prior_normaliser(compiled: Compiled, points: int = 201) -> float:
     return math.log(acc) + total_m
 
 
-def _edge_mass(end: float, inner: float) -> float:
-    """Mass of the outer node plus the tail beyond it, extrapolated from the
-    decay between the last two nodes (geometric: ``end * r / (1 - r)``)."""
-    end, inner = float(end), float(inner)
-    if end <= 0:
-        return 0.0
-    if inner <= end:
-        return 2.0 * end + (inner == 0) * end  # no decay toward the edge: the tail is not small
-    r = end / inner
-    return end + end * r / (1.0 - r)
+def _edge_masses(m: Marginal) -> tuple[float, float]:
+    """Mass of each outer node plus the tail beyond it.
+
+    The tail is extrapolated from the last two nodes both as an exponential decay
+    and as a power law about the marginal's median, and the larger is taken, so
+    that heavy tails (Student-t, Cauchy) are not underestimated."""
+    n = len(m.mass)
+    if n < 3:
+        return (float(m.mass[0]), float(m.mass[-1]))
+    g = m.mass / m.weights
+    try:
+        uc = float(m.axis.to_u(np.array([m.quantile(0.5)]))[0])
+    except (ComputeError, ValueError):
+        uc = float(m.u[int(np.argmax(m.mass))])
+    return (_tail(m.mass[0], g[0], g[1], m.u[0], m.u[1], uc),
+            _tail(m.mass[-1], g[-1], g[-2], m.u[-1], m.u[-2], uc))
+
+
+def _tail(mass_end, g_end, g_in, u_end, u_in, uc) -> float:
+    mass_end, g_end, g_in = float(mass_end), float(g_end), float(g_in)
+    if mass_end <= 0 or g_end <= 0:
+        return max(mass_end, 0.0)
+    if g_in <= g_end:
+        return 1.0  # no decay toward the edge: the tail is not small
+    h = abs(u_end - u_in)
+    drop = math.log(g_in / g_end)
+    tail = g_end * h / drop                        # exponential decay
+    d_end, d_in = abs(u_end - uc), abs(u_in - uc)
+    if d_in > 0 and d_end > d_in:
+        alpha = drop / math.log(d_end / d_in) - 1.0  # density ~ d^-(alpha+1)
+        tail = max(tail, g_end * d_end / alpha) if alpha > 0 else 1.0
+    return min(mass_end + tail, 1.0)

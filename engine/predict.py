@@ -164,10 +164,7 @@ def predictive(post: Posterior, name: str, family: str, args: Sequence[sp.Expr],
         fns.append(param_function(e, params))
     theta, w = _mixture_points(post)
     argv = tuple(np.asarray(fn(theta), float) for fn in fns)
-    # keep only points where the arguments are valid for the family
-    with np.errstate(all="ignore"):
-        x = sp.Dummy("x")
-        term = f.logpdf(x, *[sp.Symbol(f"a{i}", real=True) for i in range(len(args))])
+    # keep only points where the arguments are finite
     ok = np.ones(len(w), bool)
     for a in argv:
         ok &= np.isfinite(a)

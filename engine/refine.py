@@ -235,8 +235,45 @@ def find_modes(compiled: Compiled, fixed: dict[str, float], *, starts: int = 8,
     return modes
 
 
+def _symbolic_hessian_u(target: _Target, x: np.ndarray) -> np.ndarray | None:
+    """Hessian of the unconstrained log density at `x` from the symbolic derivatives
+    in the parameters (chain rule through each axis's transform), or None."""
+    th = target.theta(x[None, :])
+    point = {p.name: float(t[0]) for p, t in zip(target.c.params, th)}
+    r = target.c.curvature(point)
+    if r is None:
+        return None
+    g, H = r
+    d1 = np.empty(len(x))    # d value / du
+    d2 = np.empty(len(x))    # d2 value / du2
+    lj2 = np.empty(len(x))   # d2 log|d value/du| / du2
+    for k, (p, scale) in enumerate(zip(target.cont, target.scales)):
+        u = x[k]
+        if scale == "log":
+            d1[k] = d2[k] = math.exp(u)
+            lj2[k] = 0.0
+        elif scale == "logit":
+            s_ = float(sc.expit(u))
+            w = p.hi - p.lo
+            d1[k] = w * s_ * (1 - s_)
+            d2[k] = d1[k] * (1 - 2 * s_)
+            lj2[k] = -2 * s_ * (1 - s_)
+        else:
+            d1[k], d2[k], lj2[k] = 1.0, 0.0, 0.0
+    Hu = H * np.outer(d1, d1) + np.diag(g * d2 + lj2)
+    return Hu if np.all(np.isfinite(Hu)) else None
+
+
 def _curvature_sd(target: _Target, x: np.ndarray) -> np.ndarray:
     d = len(x)
+    Hs = _symbolic_hessian_u(target, x)
+    if Hs is not None:
+        try:
+            diag = np.diag(np.linalg.inv(-Hs))
+            if np.all(np.isfinite(diag)) and np.all(diag > 0):
+                return np.sqrt(diag)
+        except np.linalg.LinAlgError:
+            pass
     h = np.full(d, 1e-3)
     sd = np.ones(d)
     for _ in range(3):
@@ -309,22 +346,36 @@ def auto_grid(compiled: Compiled, *, points: dict[str, int] | None = None,
             lo, hi = max(lo, p.lo), min(hi, p.hi)
             if sc_ == "linear" and p.bounded:
                 lo, hi = max(lo, p.lo), min(hi, p.hi)
-            n = n_each or (points or {}).get(p.name) or p.points or sized.get(p.name, npts)
+            n = (n_each or {}).get(p.name) or (points or {}).get(p.name) or p.points or \
+                sized.get(p.name, npts)
             out.append(AxisSpec(p.name, lo, hi, n, _fit_scale(p, lo, hi, sc_)))
         return tuple(out)
 
     sized: dict[str, int] = {}
-    check_n = max(5, min(41, int(round(CHECK_POINTS ** (1 / max(len(cont), 1))))))
-    if check_n % 2 == 0:
-        check_n += 1
+    def check_counts() -> dict[str, int]:
+        """Points of the checking pass: enough to resolve the narrowest mode (two
+        nodes per curvature sd, so that the total mass the edges are judged against
+        is right), at least 41, within `CHECK_POINTS` in all."""
+        want = {p.name: max(41, int(math.ceil((hi_u[p.name] - lo_u[p.name]) /
+                                              (sd_u[p.name] / 2 if sd_u[p.name] > 0 else 1))))
+                for p in cont}
+        total = math.prod(want.values()) * math.prod(len(p.values) for p in disc)
+        if total > CHECK_POINTS:
+            f = (CHECK_POINTS / total) ** (1 / max(len(cont), 1))
+            want = {k: max(9, int(v * f)) for k, v in want.items()}
+        return {k: v + (1 - v % 2) for k, v in want.items()}
+
     grow = {p.name: [0, 0] for p in cont}
     history: dict[str, list[tuple[float, float]]] = {p.name: [] for p in cont}
     edge = {}
     widenings = 0
     improper: list[str] = []
     converged = True
+    # the threshold is shared by every end of every continuous axis, so that the
+    # box as a whole leaves out less than `edge_mass`
+    per_end = edge_mass / (2 * max(len(cont), 1))
     for it in range(max_widen + 1):
-        specs = specs_from(check_n)
+        specs = specs_from(check_counts())
         grid = build_grid(params, specs)
         post = compute(compiled, grid, pairs=[], store=False)
         edge = post.diagnostics.edge_mass
@@ -337,11 +388,11 @@ def auto_grid(compiled: Compiled, *, points: dict[str, int] | None = None,
             at_lo = a.scale == "linear" and a.lo <= p.lo
             at_hi = a.scale == "linear" and a.hi >= p.hi
             ulo, uhi = U_LIMITS[scales[p.name]]
-            if m_lo > edge_mass and not at_lo and lo_u[p.name] > ulo:
+            if m_lo > per_end and not at_lo and lo_u[p.name] > ulo:
                 lo_u[p.name] = max(lo_u[p.name] - 0.5 * span, ulo)
                 grow[p.name][0] += 1
                 again = True
-            if m_hi > edge_mass and not at_hi and hi_u[p.name] < uhi:
+            if m_hi > per_end and not at_hi and hi_u[p.name] < uhi:
                 hi_u[p.name] = min(hi_u[p.name] + 0.5 * span, uhi)
                 grow[p.name][1] += 1
                 again = True
@@ -373,14 +424,16 @@ def auto_grid(compiled: Compiled, *, points: dict[str, int] | None = None,
     for p in cont:
         lo_lim, hi_lim = U_LIMITS[scales[p.name]]
         m_lo, m_hi = edge.get(p.name, (0.0, 0.0))
-        if m_hi > edge_mass and hi_u[p.name] >= hi_lim:
+        if m_hi > per_end and hi_u[p.name] >= hi_lim:
             limited.append(f"the mass beyond the upper end of `{p.name}` stays at {m_hi:.2g}: "
                            f"values closer to {p.hi:g} are not distinct from it in double precision")
-        if m_lo > edge_mass and lo_u[p.name] <= lo_lim:
+        if m_lo > per_end and lo_u[p.name] <= lo_lim:
             limited.append(f"the mass beyond the lower end of `{p.name}` stays at {m_lo:.2g}: "
                            f"values closer to {p.lo:g} are not distinct from it in double precision")
     mode_vals = []
     target = _Target(compiled, fixed)
+    if improper:
+        modes = modes[:1]   # a flat posterior has no separated modes to report
     for x, fx, sd in modes:
         th = target.theta(x[None, :])
         mode_vals.append({p.name: float(t[0]) for p, t in zip(params, th)})

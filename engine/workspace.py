@@ -1011,9 +1011,14 @@ class Workspace:
         other = s.model.taken(name)
         if other in ("parameter", "let"):
             raise ModelError(f"`{name}` is already a {other}")
-        names = {p.name: p.symbol for p in s.model.params}
+        names = {c: sp.Symbol(c, real=True) for c in s.data.names}
+        names.update({p.name: p.symbol for p in s.model.params})
         names.update({l_.name: sp.Symbol(l_.name, real=True) for l_ in s.model.lets})
         fname, args = parse_call(text, names, fam.FAMILIES)
+        cols = {x.name for a in args for x in a.free_symbols} & set(s.data.names)
+        if cols:
+            raise ModelError(f"predict: `{sorted(cols)[0]}` is a data column; give the new "
+                             "row's values as numbers")
         f = fam.get(fname)
         if len(args) != len(f.params):
             raise ModelError(f"`{fname}` takes {len(f.params)} argument"

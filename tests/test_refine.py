@@ -1,0 +1,241 @@
+"""Automatic bounds, refinement, zoom and cost (engine level).
+
+References: scipy.stats distributions for tail masses and for the conjugate
+posteriors; the conjugate formulas themselves are common practice (any Bayesian
+text), restated beside each check.
+"""
+
+import math
+
+import numpy as np
+import pytest
+import scipy.special as sc
+import scipy.stats as st
+
+from engine.errors import ComputeError, GridError
+from engine.refine import auto_grid, build_grid
+from engine.workspace import Workspace
+
+
+def one_param(kind, prior=None, log=None):
+    w = Workspace()
+    w.param("x", kind)
+    if prior:
+        w.prior("x", prior)
+    if log:
+        w.prior_log(log)
+    return w
+
+
+def held_mass(dist, spec):
+    return dist.cdf(spec.hi) - dist.cdf(spec.lo)
+
+
+@pytest.mark.parametrize("kind,prior,dist", [
+    ("real", "normal(3, 2)", st.norm(3, 2)),
+    ("real", "student_t(3, 0, 1)", st.t(3, 0, 1)),
+    ("positive", "gamma(1.5, 0.2)", st.gamma(1.5, scale=1 / 0.2)),
+])
+def test_grid_auto_bounds_hold_all_but_1e9(kind, prior, dist):
+    # the tail masses come from scipy.stats's cdf of the same distribution
+    w = one_param(kind, prior)
+    ag = auto_grid(w.compiled())
+    assert ag.converged
+    assert held_mass(dist, ag.specs[0]) >= 1 - 1e-9
+
+
+def test_grid_auto_beta_half_half_reaches_the_precision_limit():
+    # beta(0.5, 0.5) piles up at both ends with an unbounded density. Near 1, values
+    # closer than 2^-53 are not distinct from 1 in double precision, and the mass there
+    # is (2/pi) asin(sqrt(2^-53)) ~ 6.7e-9 (scipy.stats.beta.sf): no grid of floats
+    # below 1 can hold more. grid auto must reach that limit and say so.
+    w = one_param("unit", "beta(0.5, 0.5)")
+    ag = auto_grid(w.compiled())
+    dist = st.beta(0.5, 0.5)
+    spec = ag.specs[0]
+    limit = dist.sf(1 - 2.0**-53)
+    assert dist.cdf(spec.lo) < 1e-9
+    assert dist.sf(spec.hi) <= 1.5 * limit
+    assert "double precision" in ag.message
+    # and the posterior on that grid is right: mean 1/2, sd sqrt(1/8) (scipy.stats.beta)
+    post = w.state.posterior
+    w.grid_auto()
+    w.compute()
+    post = w.state.posterior
+    assert post.param_mean("x").value == pytest.approx(0.5, abs=1e-7)
+    assert post.param_sd("x").value == pytest.approx(dist.std(), rel=1e-6)
+
+
+def test_grid_auto_covers_both_modes_of_a_mixture():
+    # a two-component normal mixture written as a free log-density; mixture cdf from
+    # scipy.stats.norm
+    w = one_param("real", log="log(0.3*exp(-(x+4)^2/2) + 0.7*exp(-(x-5)^2/0.5))")
+    ag = auto_grid(w.compiled())
+    assert len(ag.modes) == 2
+    found = sorted(m["x"] for m in ag.modes)
+    assert found[0] == pytest.approx(-4, abs=1e-4) and found[1] == pytest.approx(5, abs=1e-4)
+    spec = ag.specs[0]
+    sd2 = math.sqrt(0.25)
+    z1, z2 = 0.3 * math.sqrt(2 * math.pi), 0.7 * math.sqrt(2 * math.pi) * sd2
+    w1, w2 = z1 / (z1 + z2), z2 / (z1 + z2)
+    cdf = lambda v: w1 * st.norm(-4, 1).cdf(v) + w2 * st.norm(5, sd2).cdf(v)
+    assert cdf(spec.hi) - cdf(spec.lo) >= 1 - 1e-9
+
+
+def beta_binomial_ws():
+    w = Workspace()
+    w.param("p", "unit")
+    w.prior("p", "beta(2, 3)")
+    w.data_typed("k", ["7"])
+    w.data_typed("n", ["20"])
+    w.likelihood("k", "binomial(n, p)")
+    return w
+
+
+def test_refine_until_converges_to_beta_binomial_closed_form():
+    # posterior beta(2+7, 3+13); evidence C(20,7) B(9,16) / B(2,3) (common practice)
+    w = beta_binomial_ws()
+    w.grid("p", 0.001, 0.9, 21)
+    rep = w.refine(until=1e-8)
+    assert rep.converged
+    post = w.state.posterior
+    ref = st.beta(9, 16)
+    logz = math.log(sc.comb(20, 7)) + sc.betaln(9, 16) - sc.betaln(2, 3)
+    assert post.log_evidence.value == pytest.approx(logz, abs=1e-7)
+    assert post.param_mean("p").value == pytest.approx(ref.mean(), abs=1e-7)
+    assert post.param_sd("p").value == pytest.approx(ref.std(), abs=1e-7)
+    for q in (0.025, 0.5, 0.975):
+        assert post.quantile("p", q).value == pytest.approx(ref.ppf(q), abs=1e-7)
+    # each step re-used the nodes it shared with the one before
+    for step in rep.steps[1:]:
+        assert step.evaluated < step.points
+
+
+def test_refine_until_converges_on_normal_inverse_gamma():
+    # y ~ normal(mu, sqrt(v)), mu | v ~ normal(m0, sqrt(v/k0)), v ~ inv_gamma(a0, b0):
+    # the marginal of mu is Student-t with 2 a_n degrees of freedom, location m_n and
+    # scale sqrt(b_n / (a_n k_n)); the evidence is the normal-inverse-gamma marginal
+    # likelihood (common practice; conjugate updating formulas)
+    rng = np.random.default_rng(11)
+    y = rng.normal(1.0, 2.0, 20)
+    m0, k0, a0, b0 = 0.0, 0.5, 3.0, 4.0
+    w = Workspace()
+    w.param("mu", "real")
+    w.param("v", "positive")
+    w.prior("v", f"inv_gamma({a0}, {b0})")
+    w.prior("mu", f"normal({m0}, sqrt(v/{k0}))")
+    w.data_typed("y", [repr(float(t)) for t in y])
+    w.likelihood("y", "normal(mu, sqrt(v))")
+    w.grid_auto()
+    rep = w.refine(until=1e-8)
+    assert rep.converged
+    n, ybar = len(y), y.mean()
+    kn = k0 + n
+    mn = (k0 * m0 + n * ybar) / kn
+    an = a0 + n / 2
+    bn = b0 + 0.5 * ((y - ybar) ** 2).sum() + k0 * n * (ybar - m0) ** 2 / (2 * kn)
+    tdist = st.t(2 * an, mn, math.sqrt(bn / (an * kn)))
+    logz = (sc.gammaln(an) - sc.gammaln(a0) + a0 * math.log(b0) - an * math.log(bn)
+            + 0.5 * math.log(k0 / kn) - n / 2 * math.log(2 * math.pi))
+    post = w.state.posterior
+    assert post.log_evidence.value == pytest.approx(logz, abs=1e-7)
+    assert post.param_mean("mu").value == pytest.approx(tdist.mean(), abs=1e-7)
+    assert post.param_sd("mu").value == pytest.approx(tdist.std(), abs=1e-7)
+    assert post.param_mean("v").value == pytest.approx(st.invgamma(an, scale=bn).mean(), rel=1e-7)
+
+
+def test_refine_one_axis_only():
+    w = Workspace()
+    w.param("a", "real")
+    w.param("b", "real")
+    w.prior("a", "normal(0, 1)")
+    w.prior("b", "normal(0, 1)")
+    w.grid("a", -8, 8, 21)
+    w.grid("b", -8, 8, 21)
+    w.compute()
+    rep = w.refine("a")
+    g = w.state.posterior.grid
+    assert g.axis("a").n == 41 and g.axis("b").n == 21
+    assert len(rep.steps) == 2
+
+
+def test_refine_refuses_a_discrete_axis():
+    w = Workspace()
+    w.param("k", "int", lo=0, hi=5)
+    w.compute()
+    with pytest.raises(GridError, match="`k` is discrete"):
+        w.refine("k")
+
+
+def test_narrow_grid_warns_about_edge_mass():
+    w = one_param("real", "normal(0, 1)")
+    w.grid("x", -1, 8, 81)
+    rep = w.compute()
+    assert any("lower edge of `x`" in m for m in rep.warnings)
+    assert not any("upper edge" in m for m in rep.warnings)
+
+
+def test_coarse_grid_warns():
+    w = one_param("real", "normal(0, 1)")
+    w.grid("x", -10, 10, 21)
+    rep = w.compute()
+    assert any("too coarse" in m for m in rep.warnings)
+
+
+def test_flat_prior_without_data_is_called_improper():
+    w = Workspace()
+    w.param("mu", "real")
+    ag = auto_grid(w.compiled())
+    assert not ag.converged
+    assert "improper" in ag.message
+    rep = w.compute()
+    assert any("improper" in n for n in rep.notes)
+    assert rep.log_evidence is None
+    with pytest.raises(ComputeError, match="evidence is not defined"):
+        w.evidence()
+
+
+def grid_of(d, n=10):
+    w = Workspace()
+    for i in range(d):
+        w.param(f"a{i}", "real")
+        w.prior(f"a{i}", "normal(0, 1)")
+        w.grid(f"a{i}", -3, 3, n)
+    return w
+
+
+def test_cost_counts_points():
+    assert grid_of(3).cost().cost.points == 1000
+
+
+def test_cost_and_refusal_at_twenty_dimensions():
+    w = grid_of(20)
+    c = w.cost()
+    assert c.cost.points == 10**20
+    assert "wrong tool" in c.advice
+    with pytest.raises(ComputeError, match=r"10\^20 points"):
+        w.compute()
+    assert w.state.posterior is None
+
+
+def test_budget_refusal_names_the_cost_and_force_runs():
+    w = grid_of(2, 201)
+    w.budget_seconds = 1e-9
+    with pytest.raises(ComputeError, match="40,401 points.*compute force"):
+        w.compute()
+    rep = w.compute(force=True)
+    assert rep.points == 40401
+
+
+def test_zoom_keeps_points_and_shrinks_bounds():
+    # posterior beta(9, 16): its central 1 - 1e-9 region from scipy.stats.beta.ppf
+    w = beta_binomial_ws()
+    w.grid("p", 0.0001, 0.9999, 201)
+    w.compute()
+    rep = w.zoom()
+    a = w.state.posterior.grid.axis("p")
+    ref = st.beta(9, 16)
+    assert a.n == 201
+    assert a.lo == pytest.approx(ref.ppf(5e-10), rel=1e-3)
+    assert a.hi == pytest.approx(ref.isf(5e-10), rel=1e-3)
+    assert w.state.posterior.param_mean("p").value == pytest.approx(ref.mean(), abs=1e-8)
