@@ -74,33 +74,67 @@ def memory_for(grid_points: int, axis_lengths: list[int], pairs: int = 0, *,
     return int(mem)
 
 
-def seconds_per_point(compiled: Compiled, grid: Grid, *, sample: int = 20_000) -> float:
-    """Measured seconds for one point: the density plus the reduction's share."""
-    n = int(min(sample, max(grid.size, 1)))
-    rng = np.random.default_rng(0)
-    # per-axis indices: the grid may have more points than an int64 can count
-    idx = tuple(rng.integers(0, a.n, size=n) for a in grid.axes)
-    theta = [a.values[i] for a, i in zip(grid.axes, idx)]
-    evaluate_block(compiled, theta)  # warm up (first calls build caches)
-    best = math.inf
-    for _ in range(3):
+def _sub_grid(grid: Grid, target: int) -> Grid:
+    """A grid over the same bounds, scales and rules with about `target` points."""
+    from .grid import Axis, make_axis
+    from .model import Param
+    cont = [a for a in grid.axes if not a.discrete]
+    fixed = math.prod(a.n for a in grid.axes if a.discrete)
+    if not cont:
+        return grid
+    f = (target / max(fixed, 1) / math.prod(a.n for a in cont)) ** (1 / len(cont))
+    axes = []
+    for a in grid.axes:
+        if a.discrete:
+            axes.append(a)
+            continue
+        n = max(5, min(a.n, int(round(a.n * f))))
+        n += 1 - n % 2
+        kind = "interval" if math.isfinite(a.dom_lo) and math.isfinite(a.dom_hi) else (
+            "positive" if math.isfinite(a.dom_lo) else "real")
+        p = Param(a.name, kind, a.dom_lo, a.dom_hi)
+        axes.append(make_axis(p, a.lo, a.hi, n, rule=a.rule, scale=a.scale))
+    return Grid(tuple(axes))
+
+
+def timing(compiled: Compiled, grid: Grid, *, small: int = 16_384, large: int = 65_536
+           ) -> tuple[float, float]:
+    """``(fixed seconds, seconds per point)`` of a compute on `grid`, from timed
+    computes of the real pass on two smaller grids of the same shape on this
+    machine (so every overhead of the pass is counted, not only the density)."""
+    from .posterior import compute
+    if grid.size <= large:
+        g = grid
         t0 = time.perf_counter()
-        lp = evaluate_block(compiled, theta)
-        # the reduction: weights, exp, one bincount per axis and per level
-        w = np.exp(lp - np.max(lp[np.isfinite(lp)], initial=0.0))
-        for _lev in range(grid.levels + 1):
-            for a, i in zip(grid.axes, idx):
-                np.bincount(i, weights=w, minlength=a.n)
-        best = min(best, time.perf_counter() - t0)
-    return best / n
+        compute(compiled, g, pairs=[], store=False)
+        t = time.perf_counter() - t0
+        return 0.0, t / max(g.size, 1)
+    times = []
+    for target in (small, large):
+        g = _sub_grid(grid, target)
+        best = math.inf
+        for _ in range(2):
+            t0 = time.perf_counter()
+            compute(compiled, g, pairs=[], store=False)
+            best = min(best, time.perf_counter() - t0)
+        times.append((g.size, best))
+    (n1, t1), (n2, t2) = times
+    slope = (t2 - t1) / (n2 - n1) if n2 > n1 else t2 / n2
+    slope = max(slope, t2 / n2 * 0.5)
+    return max(t2 - slope * n2, 0.0), slope
+
+
+def seconds_per_point(compiled: Compiled, grid: Grid) -> float:
+    """Measured seconds per grid point of the whole pass (density and reduction)."""
+    return timing(compiled, grid)[1]
 
 
 def estimate(compiled: Compiled, grid: Grid, *, pairs: int = 0) -> Cost:
     """Points, memory and predicted seconds of computing on `grid`."""
     points = math.prod(a.n for a in grid.axes)
-    spp = seconds_per_point(compiled, grid)
+    fixed, spp = timing(compiled, grid)
     mem = memory_for(points, [a.n for a in grid.axes], pairs, levels=grid.levels)
-    return Cost(points, mem, spp * points, spp, machine_memory())
+    return Cost(points, mem, fixed + spp * points, spp, machine_memory())
 
 
 def format_count(n: int) -> str:
