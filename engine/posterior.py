@@ -384,8 +384,8 @@ class Posterior:
 
     def _estimate(self, name: str, f: Callable[[Marginal], float]) -> Estimate:
         ms = self._levels_of(name)
-        vals = []
-        for m in ms:
+        vals = [f(ms[0])]  # the fine grid's answer: its errors are the user's to see
+        for m in ms[1:]:
             try:
                 vals.append(f(m))
             except (ComputeError, ValueError):
