@@ -1,0 +1,204 @@
+"""Marginals and summaries to CSV and JSON files, written atomically.
+
+`atomic_write` writes a file so that a crash at any moment leaves either the
+old file whole or the new one whole: the text goes to a temporary file in the
+same folder, is flushed to disk, and replaces the target in one rename.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import json
+import math
+import os
+import tempfile
+from dataclasses import dataclass
+from typing import Mapping
+
+from .errors import QuadratError
+from .posterior import Estimate, Posterior
+
+FORMATS = (".csv", ".json")
+
+
+@dataclass(frozen=True)
+class ExportReport:
+    """What `export` wrote.
+
+    Attributes
+    ----------
+    path : str
+    what : str
+        ``marginals``, ``summary`` or ``all``.
+    rows : int
+        Data rows written (CSV), or parameters (JSON).
+    bytes : int
+    """
+
+    path: str
+    what: str
+    rows: int
+    bytes: int
+
+
+def atomic_write(path: str, text: str, *, encoding: str = "utf-8") -> int:
+    """Write `text` to `path` atomically; returns the number of bytes written.
+
+    Raises
+    ------
+    QuadratError
+        The folder does not exist or cannot be written; the target is then
+        untouched.
+    """
+    folder = os.path.dirname(os.path.abspath(path))
+    name = os.path.basename(path)
+    data = text.encode(encoding)
+    if os.path.isdir(path):
+        raise QuadratError(f"`{path}` is a folder, not a file")
+    try:
+        fd, tmp = tempfile.mkstemp(prefix=f".{name}.", suffix=".tmp", dir=folder)
+    except FileNotFoundError:
+        raise QuadratError(f"cannot write `{path}`: folder `{folder}` does not exist") from None
+    except OSError as exc:
+        raise QuadratError(f"cannot write `{path}`: {exc.strerror or exc}") from None
+    try:
+        with os.fdopen(fd, "wb") as fh:
+            fh.write(data)
+            fh.flush()
+            os.fsync(fh.fileno())
+        try:
+            # the new file keeps the old one's permissions, else the usual ones
+            mode = os.stat(path).st_mode & 0o777 if os.path.exists(path) else 0o666 & ~_umask()
+            os.chmod(tmp, mode)
+        except OSError:
+            pass
+        os.replace(tmp, path)
+    except BaseException as exc:
+        try:
+            os.unlink(tmp)
+        except OSError:
+            pass
+        if isinstance(exc, OSError):
+            raise QuadratError(f"cannot write `{path}`: {exc.strerror or exc}") from None
+        raise
+    try:
+        dfd = os.open(folder, os.O_RDONLY)
+        try:
+            os.fsync(dfd)
+        finally:
+            os.close(dfd)
+    except OSError:
+        pass  # some file systems cannot sync a folder; the rename itself is atomic
+    return len(data)
+
+
+def _umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
+
+
+def _f(v) -> float | None:
+    """A JSON-safe float (None for NaN or infinities)."""
+    if v is None:
+        return None
+    v = float(v)
+    return v if math.isfinite(v) else None
+
+
+def _est(e: Estimate | None) -> dict | None:
+    if e is None:
+        return None
+    return {"value": _f(e.value), "error": _f(e.error), "method": e.method}
+
+
+def _csv_text(header, rows) -> str:
+    buf = io.StringIO()
+    w = csv.writer(buf, lineterminator="\n")
+    w.writerow(header)
+    w.writerows(rows)
+    return buf.getvalue()
+
+
+def marginals_csv(post: Posterior) -> tuple[str, int]:
+    """Every 1-D marginal in one long table: ``parameter,value,density,mass``.
+
+    `density` is in the parameter's own units (the probability for a discrete
+    parameter); `mass` is the posterior mass each grid node carries.
+    """
+    rows = []
+    for name in post.names:
+        m = post.marginals[name]
+        dens = m.density()
+        for v, d, w in zip(m.values, dens, m.mass):
+            rows.append([name, repr(float(v)), repr(float(d)), repr(float(w))])
+    return _csv_text(["parameter", "value", "density", "mass"], rows), len(rows)
+
+
+_STATS = (("mean", "mean"), ("sd", "sd"), ("q025", "q2.5"), ("q50", "q50"), ("q975", "q97.5"))
+
+
+def summary_csv(summary) -> tuple[str, int]:
+    """One row a parameter: each statistic and its estimated error."""
+    header = ["parameter"]
+    for _, label in _STATS:
+        header += [label, label + "_error"]
+    rows = []
+    for r in summary.rows:
+        row = [r.name]
+        for attr, _ in _STATS:
+            e = getattr(r, attr)
+            row += [repr(float(e.value)), "" if e.error is None else repr(float(e.error))]
+        rows.append(row)
+    return _csv_text(header, rows), len(rows)
+
+
+def to_json(post: Posterior, summary, *, meta: Mapping[str, object] | None = None) -> str:
+    """Summary, log evidence and every marginal as one JSON document."""
+    params = {}
+    for r in summary.rows:
+        m = post.marginals[r.name]
+        params[r.name] = {
+            "discrete": bool(m.discrete),
+            "mean": _est(r.mean), "sd": _est(r.sd),
+            "q2.5": _est(r.q025), "q50": _est(r.q50), "q97.5": _est(r.q975),
+            "marginal": {"values": [_f(v) for v in m.values],
+                         "density": [_f(v) for v in m.density()],
+                         "mass": [_f(v) for v in m.mass]},
+        }
+    doc = {
+        **(dict(meta) if meta else {}),
+        "points": int(post.grid.size),
+        "grid": [a.describe() for a in post.grid.axes],
+        "log_evidence": _est(summary.log_evidence),
+        "parameters": params,
+    }
+    return json.dumps(doc, indent=1, allow_nan=False) + "\n"
+
+
+def export(path: str, post: Posterior, summary, *, what: str = "marginals",
+           meta: Mapping[str, object] | None = None) -> ExportReport:
+    """Write marginals or the summary to `path` (CSV), or everything (JSON).
+
+    Parameters
+    ----------
+    path : str
+        Ends in ``.csv`` or ``.json``.
+    what : str, keyword-only
+        For CSV: ``marginals`` (the long table) or ``summary``. JSON holds both.
+    """
+    ext = os.path.splitext(path)[1].lower()
+    if ext not in FORMATS:
+        raise QuadratError(f"`{os.path.basename(path)}`: export writes .csv or .json files")
+    if ext == ".json":
+        text = to_json(post, summary, meta=meta)
+        rows, what = len(summary.rows), "all"
+    elif what == "summary":
+        text, rows = summary_csv(summary)
+    elif what == "marginals":
+        text, rows = marginals_csv(post)
+    else:
+        raise QuadratError(f"unknown export `{what}`; use marginals or summary")
+    n = atomic_write(path, text)
+    return ExportReport(path, what, rows, n)

@@ -1,0 +1,130 @@
+"""Grids, rules, cost and compute."""
+
+from __future__ import annotations
+
+from engine.grid import SCALES
+from engine.rules import RULE_HELP, RULES
+
+from .. import render as R
+from ..registry import NOTHING, Slot, command
+from ..words import Line, ShellError, number, whole
+from .common import notes, say
+
+GRID_USAGE = "grid NAME LO HI [N] [linear|log|logit]  or  grid auto"
+
+
+def _complete_grid(words, text):
+    if len(words) == 1:
+        return Slot(params=True, words=("auto",))
+    if len(words) in (4, 5) and words[1] != "auto":
+        return Slot(words=SCALES)
+    return NOTHING
+
+
+@command("grid", usage=GRID_USAGE, kind="change", group="grid", complete=_complete_grid,
+         help="""Sets the grid axis of a parameter: from LO to HI (the parameter's own
+         units) with N points, on a linear, log or logit scale (by default log for positive
+         and logit for bounded parameters whose grid stays inside the domain). A discrete
+         parameter's axis is every value from LO to HI. `grid auto` finds the posterior's
+         mass from the mode and curvature and sets every axis. Axes not set are found by
+         `grid auto` when computing. A second `grid` for the same parameter replaces it.""")
+def grid(app, line: Line):
+    w = line.words
+    if len(w) >= 2 and w[1].text == "auto":
+        if len(w) > 2:
+            raise ShellError(f"unexpected `{w[2].text}` after `grid auto`", w[2].column)
+        change, _ = app.ws.grid_auto()
+        say(app, change)
+        return
+    if len(w) < 4:
+        raise ShellError(f"`grid` needs more: {GRID_USAGE}", line.end_column())
+    name = w[1].text
+    lo, hi = number(w[2], "LO"), number(w[3], "HI")
+    n = scale = None
+    for x in w[4:]:
+        if x.text in SCALES:
+            if scale is not None:
+                raise ShellError(f"two scales: `{scale}` and `{x.text}`", x.column)
+            scale = x.text
+        elif n is None and scale is None:
+            n = whole(x, "N", low=1)
+        else:
+            raise ShellError(f"unexpected `{x.text}`; usage: {GRID_USAGE}", x.column)
+    say(app, app.ws.grid(name, lo, hi, n, scale))
+
+
+@command("rule", usage="rule RULE", kind="change", group="grid",
+         complete=lambda words, text: Slot(words=tuple(RULES)) if len(words) == 1 else NOTHING,
+         help="""Sets the 1-D integration rule of the continuous axes. """ +
+         " ".join(f"`{k}`: {v}." for k, v in RULE_HELP.items()))
+def rule(app, line: Line):
+    w = line.words
+    if len(w) != 2:
+        if len(w) < 2:
+            raise ShellError("`rule` needs a rule: " + ", ".join(RULES), line.end_column())
+        raise ShellError(f"unexpected `{w[2].text}`", w[2].column)
+    if w[1].text not in RULES:
+        raise ShellError(f"unknown rule `{w[1].text}`; known: {', '.join(RULES)}", w[1].column)
+    say(app, app.ws.rule(w[1].text))
+
+
+@command("cost", usage="cost", group="grid",
+         help="""Says what a `compute` would take: the grid (axes not set come from `grid
+         auto`), the number of points, the memory and the time, measured on a sample of
+         points on this machine.""")
+def cost(app, line: Line):
+    w = line.words
+    if len(w) > 1:
+        raise ShellError(f"unexpected `{w[1].text}`", w[1].column)
+    rep = app.ws.cost()
+    p = app.printer
+    for g in rep.grid:
+        p.line("grid   " + g)
+    c = rep.cost
+    p.line(f"points {R.count(c.points)}")
+    p.line(f"memory about {R.bytes_text(c.memory)} (this machine has "
+           f"{R.bytes_text(c.machine_memory)})")
+    p.line(f"time   about {R.duration(c.seconds)} ({R.num(c.seconds_per_point, 2)} s a point, "
+           f"measured here)")
+    ahead = getattr(rep, "ahead", ())
+    if ahead:
+        p.line("finer grids, each step doubling the resolution of every continuous axis:")
+        p.lines(R.table(["step", "points", "memory", "time"],
+                        [[str(a.step), R.count(a.points), R.bytes_text(a.memory),
+                          R.duration(a.seconds)] for a in ahead], indent=2))
+    if rep.auto:
+        p.note("axes not set come from `grid auto`")
+    if not c.fits:
+        p.warning("this does not fit in memory: use fewer points")
+    elif c.seconds > rep.budget_seconds:
+        p.warning(f"over the budget of {R.duration(rep.budget_seconds)}: `compute force` runs "
+                  "it anyway")
+    if getattr(rep, "advice", ""):
+        p.note(rep.advice)
+
+
+@command("compute", usage="compute [force]", kind="change", group="grid",
+         complete=lambda words, text: Slot(words=("force",)) if len(words) == 1 else NOTHING,
+         help="""Evaluates the posterior on the grid (axes not set come from `grid auto`),
+         with a progress bar when it takes more than a second. A job predicted to take
+         longer than the budget is refused unless `force` is given. Ctrl-C cancels it and
+         leaves everything as it was.""")
+def compute(app, line: Line):
+    w = line.words
+    force = False
+    if len(w) > 1:
+        if w[1].text != "force" or len(w) > 2:
+            bad = w[1] if w[1].text != "force" else w[2]
+            raise ShellError(f"unexpected `{bad.text}`; usage: compute [force]", bad.column)
+        force = True
+    bar = app.printer.progress()
+    try:
+        rep = app.ws.compute(progress=bar, force=force)
+    finally:
+        bar.close()
+    ev = ("; log evidence " + R.with_error(rep.log_evidence.value, rep.log_evidence.error)
+          if rep.log_evidence is not None else "")
+    app.printer.line(f"computed {R.count(rep.points)} points in {R.duration(rep.seconds)}{ev}")
+    notes(app, rep.notes)
+    for x in rep.warnings:
+        app.printer.warning(x)

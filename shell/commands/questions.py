@@ -1,0 +1,332 @@
+"""Questions of the posterior, and `check`.
+
+Each question that yields numbers has an `ask` function (answer, the lines to
+print, and what a saved check line states) that `check` shares with the
+question's own handler, so both read the line the same way.
+"""
+
+from __future__ import annotations
+
+import math
+
+from engine.workspace import Answer
+
+from .. import render as R
+from ..registry import COMMANDS, NOTHING, Slot, command
+from ..replies import Asked, Reply, Shown
+from ..words import Line, ShellError, Word, formula_at, lone_equals, number
+from .common import notes
+
+
+def _formula(line: Line, what: str):
+    seg = line.rest(1)
+    if not seg.text:
+        raise ShellError(f"`{line.name}` needs {what}", line.end_column())
+    return seg
+
+
+def _values(a: Answer) -> str:
+    vals = ", ".join(R.num(v) for v in a.values)
+    errs = [e for e in a.errors if e is not None]
+    if not errs:
+        return vals
+    return f"{vals}  ({', '.join(R.err(e) for e in a.errors if e is not None)})"
+
+
+def _asked(line: Line, a: Answer, shown_text: str, **tol) -> Asked:
+    return Asked(a, (f"{shown_text} = {_values(a)}",),
+                 Shown(line.text, a.values, R.check_tol(a.values, a.errors, **tol)))
+
+
+def show(app, asked: Asked) -> Reply:
+    notes(app, asked.answer.notes)
+    app.printer.lines(asked.lines)
+    return Reply(shown=(asked.shown,))
+
+
+def _handler(ask):
+    def handle(app, line: Line):
+        return show(app, ask(app, line))
+    return handle
+
+
+def _FORMULA(words, text) -> Slot:
+    return Slot.formula()
+
+
+# ---------------------------------------------------------------------------
+# prob, mean, sd, quantile
+
+def ask_prob(app, line: Line) -> Asked:
+    seg = _formula(line, "a condition, as in `prob p > 0.5`")
+    a = formula_at(seg, app.ws.prob, seg.text)
+    return _asked(line, a, f"P({seg.text})", floor=1e-14)
+
+
+def ask_mean(app, line: Line) -> Asked:
+    seg = _formula(line, "an expression, as in `mean p`")
+    a = formula_at(seg, app.ws.mean, seg.text)
+    return _asked(line, a, line.text, scale=a.detail.sd.value)
+
+
+def ask_sd(app, line: Line) -> Asked:
+    seg = _formula(line, "an expression, as in `sd p`")
+    a = formula_at(seg, app.ws.sd, seg.text)
+    return _asked(line, a, line.text, scale=a.values[0])
+
+
+def ask_quantile(app, line: Line) -> Asked:
+    w = line.words
+    if len(w) < 3:
+        raise ShellError("`quantile` needs an expression and a level, as in `quantile p 0.9`",
+                         line.end_column())
+    q = number(w[-1], "quantile level")
+    if not 0 < q < 1:
+        raise ShellError(f"quantile level must be between 0 and 1; got `{w[-1].text}`",
+                         w[-1].column)
+    seg = line.part(w[1].start, w[-1].start).rest(0)
+    a = formula_at(seg, app.ws.quantile, seg.text, q)
+    return _asked(line, a, line.text)
+
+
+def question(name: str, usage: str, help: str, ask, complete=_FORMULA) -> None:
+    """Register a question command from its `ask` function."""
+    command(name, usage=usage, kind="question", group="question", complete=complete,
+            ask=ask, help=help)(_handler(ask))
+
+
+question("prob", "prob CONDITION", ask=ask_prob, help="""
+    The posterior probability of a condition on the parameters and lets, as in `prob p <
+    0.01` or `prob a > b and b > 0`; `==` and `!=` suit discrete parameters. Conditions use
+    `< <= > >= == !=` and `and or not`.""")
+question("mean", "mean EXPR", ask=ask_mean, help="""
+    The posterior mean of any expression of the parameters and lets, as in `mean p` or
+    `mean exp(mu + sigma^2 / 2)`.""")
+question("sd", "sd EXPR", ask=ask_sd, help="""
+    The posterior standard deviation of any expression of the parameters and lets.""")
+question("quantile", "quantile EXPR Q", ask=ask_quantile, help="""
+    The Q-quantile (0 < Q < 1) of any expression of the parameters and lets under the
+    posterior, as in `quantile 1 / rate 0.9`.""")
+
+
+# ---------------------------------------------------------------------------
+# interval, mode, evidence
+
+INTERVAL_USAGE = "interval NAME [LEVEL] [hpd|central]"
+
+
+def ask_interval(app, line: Line) -> Asked:
+    w = line.words
+    if len(w) < 2:
+        raise ShellError(f"`interval` needs a parameter: {INTERVAL_USAGE}", line.end_column())
+    level, kind = 0.95, "central"
+    seen_level = seen_kind = False
+    for x in w[2:]:
+        if x.text in ("hpd", "central") and not seen_kind:
+            kind, seen_kind = x.text, True
+            continue
+        if not seen_level and x.text not in ("hpd", "central"):
+            t = x.text
+            level = number(Word(t[:-1], x.start), "level") / 100 if t.endswith("%") \
+                else number(x, "level")
+            if not 0 < level < 1:
+                raise ShellError(f"level must be between 0 and 1 (or 0% and 100%); got "
+                                 f"`{t}`", x.column)
+            seen_level = True
+            continue
+        raise ShellError(f"unexpected `{x.text}`; usage: {INTERVAL_USAGE}", x.column)
+    name = w[1].text
+    if name not in app.ws.state.model.param_names:
+        raise ShellError(f"no parameter `{name}`", w[1].column)
+    a = app.ws.interval(name, level, kind)
+    return _asked(line, a, line.text, scale=abs(a.values[1] - a.values[0]))
+
+
+def _complete_interval(words, text):
+    if len(words) == 1:
+        return Slot(params=True)
+    return Slot(words=("0.9", "0.95", "0.99", "hpd", "central"))
+
+
+def ask_mode(app, line: Line) -> Asked:
+    w = line.words
+    if len(w) > 1:
+        raise ShellError(f"unexpected `{w[1].text}`: `mode` takes nothing", w[1].column)
+    a = app.ws.mode()
+    m = a.detail
+    post = app.ws.state.posterior
+    sds = [post.marginals[n].sd for n in m.values if n in post.marginals] if post else []
+    floor = 1e-5 * max(sds, default=0.0)
+    text = "mode " + ", ".join(f"{n} = {R.num(v)}" for n, v in m.values.items())
+    tol = R.check_tol(a.values, a.errors, floor=floor)
+    return Asked(a, (text + (f"  ({m.message})" if m.message else ""),),
+                 Shown(line.text, a.values, tol))
+
+
+def ask_evidence(app, line: Line) -> Asked:
+    w = line.words
+    if len(w) > 1:
+        raise ShellError(f"unexpected `{w[1].text}`: `evidence` takes nothing", w[1].column)
+    a = app.ws.evidence()
+    return _asked(line, a, "log evidence")
+
+
+question("interval", INTERVAL_USAGE, ask=ask_interval, complete=_complete_interval, help="""
+    A credible interval of a parameter: central (equal tails, the default) or hpd (highest
+    density; a region of several pieces is listed in a note), at LEVEL (default 0.95; 90%
+    also reads).""")
+question("mode", "mode", ask=ask_mode, complete=lambda words, text: NOTHING, help="""
+    The joint posterior mode: the best grid point, polished by an optimiser over the
+    continuous parameters (in the parameters' own units).""")
+question("evidence", "evidence", ask=ask_evidence, complete=lambda words, text: NOTHING,
+         help="""The log evidence (marginal likelihood) of the model, with its estimated error.
+    It is defined only when every prior is proper.""")
+
+
+# ---------------------------------------------------------------------------
+# summary
+
+def _complete_none(words, text):
+    return NOTHING
+
+
+@command("summary", usage="summary", kind="question", group="question",
+         complete=_complete_none,
+         help="""A table of every parameter's posterior mean, sd and 2.5%, 50% and 97.5%
+         quantiles, with the log evidence and the largest estimated error.""")
+def summary(app, line: Line):
+    w = line.words
+    if len(w) > 1:
+        raise ShellError(f"unexpected `{w[1].text}`: `summary` takes nothing", w[1].column)
+    s = app.ws.summary()
+    notes(app, s.notes)
+    rows, shown, errs = [], [], []
+    for r in s.rows:
+        ests = (r.mean, r.sd, r.q025, r.q50, r.q975)
+        rows.append([r.name] + [R.num(e.value) for e in ests])
+        errs.extend(e.error for e in ests if e.error is not None)
+        sd = r.sd.value
+        shown.append(Shown(f"mean {r.name}", (r.mean.value,),
+                           R.check_tol([r.mean.value], [r.mean.error], scale=sd)))
+        shown.append(Shown(f"sd {r.name}", (sd,), R.check_tol([sd], [r.sd.error], scale=sd)))
+        for q, e in (("0.025", r.q025), ("0.5", r.q50), ("0.975", r.q975)):
+            shown.append(Shown(f"quantile {r.name} {q}", (e.value,),
+                               R.check_tol([e.value], [e.error], scale=sd)))
+    p = app.printer
+    p.lines(R.table(["param", "mean", "sd", "2.5%", "50%", "97.5%"], rows))
+    ev = s.log_evidence
+    if ev is not None:
+        p.line("log evidence = " + R.with_error(ev.value, ev.error))
+        shown.append(Shown("evidence", (ev.value,), R.check_tol([ev.value], [ev.error])))
+    else:
+        p.line("log evidence: not defined (the prior is improper)")
+    tail = f"{R.count(s.points)} grid points"
+    if errs:
+        tail += f"; largest estimated error {R.err(max(errs))[2:]}"
+    p.line(tail)
+    return Reply(shown=tuple(shown))
+
+
+# ---------------------------------------------------------------------------
+# check
+
+CHECK_USAGE = "check QUESTION = VALUE[, VALUE] [tol T]"
+
+
+def _complete_check(words, text):
+    if len(words) == 1:
+        return Slot(words=tuple(n for n, c in COMMANDS.items() if c.ask is not None))
+    if lone_equals(text):
+        return Slot(words=("tol",))
+    return Slot.formula()
+
+
+@command("check", usage=CHECK_USAGE, kind="check", group="question", complete=_complete_check,
+         help="""Asks a question that yields numbers (prob, mean, sd, quantile, interval,
+         evidence, mode) and compares its answer with VALUE (the value follows the last
+         lone `=`), as in `check prob p > 0.5 = 0.013 tol 1e-4` or `check interval p 0.95
+         = 0.10, 0.52`. `tol` is absolute; without it, the precision the value is written
+         to is the tolerance. A check that fails is reported with both values and makes a
+         batch run end with status 1. `save` writes one after every question.""")
+def check(app, line: Line):
+    w = line.words
+    if len(w) < 2:
+        raise ShellError(f"`check` needs a question: {CHECK_USAGE}", line.end_column())
+    eqs = [line.start + i for i in lone_equals(line.text)]
+    if not eqs:
+        raise ShellError(f"`check` needs `= VALUE` after the question: {CHECK_USAGE}",
+                         line.end_column())
+    eq = eqs[-1]
+    qline = line.part(w[1].start, eq)
+    if qline.blank:
+        raise ShellError("`check` needs a question before `=`", eq + 1)
+    cmd = COMMANDS.get(qline.name)
+    if cmd is None or cmd.ask is None:
+        asks = ", ".join(n for n, c in COMMANDS.items() if c.ask is not None)
+        raise ShellError(f"`{qline.name}` is not a question with numbers to check; use one "
+                         f"of {asks}", qline.start + 1)
+    expected, texts, tol = _expected(line, eq)
+    asked = cmd.ask(app, qline)
+    got = asked.answer.values
+    if len(got) != len(expected):
+        raise ShellError(f"`{qline.name}` gives {len(got)} number"
+                         f"{'s' if len(got) != 1 else ''}; the check has {len(expected)}",
+                         eq + 2)
+    if tol is None:
+        tol = max(R.typed_precision(t) for t in texts)
+    notes(app, asked.answer.notes)
+    off = max(abs(g - e) for g, e in zip(got, expected))
+    ok = all(math.isfinite(g) and abs(g - e) <= tol * (1 + 1e-9) for g, e in zip(got, expected))
+    gtext = ", ".join(R.num(g) for g in got)
+    etext = ", ".join(texts)
+    label = qline.text
+    if ok:
+        app.printer.line(f"check ok: {label} = {gtext} (checked {etext}, tol {R.num(tol, 2)})",
+                         "ok")
+        return Reply(check_of=qline.text)
+    where = app.current_where
+    prefix = f"{where}: " if where else ""
+    if app.replaying:
+        msg = f"check moved: {label} was {etext}, now {gtext} (by {R.num(off, 2)}; tol " \
+              f"{R.num(tol, 2)})"
+    else:
+        msg = f"check failed: {label} = {gtext}, expected {etext} (off by {R.num(off, 2)}; " \
+              f"tol {R.num(tol, 2)})"
+    app.printer.error(prefix + msg)
+    return Reply(status="failed", check_of=qline.text)
+
+
+def _expected(line: Line, eq: int) -> tuple[list[float], list[str], float | None]:
+    """The values after `=`, and `tol T` if given."""
+    after = line.after(eq + 1)
+    if not after.text:
+        raise ShellError("no value after `=`", eq + 2)
+    sub = line.part(after.start, line.end)
+    words = list(sub.words)
+    tol = None
+    for k, x in enumerate(words):
+        if x.text == "tol":
+            if k + 1 >= len(words):
+                raise ShellError("`tol` needs a number", x.end + 1)
+            if k + 2 < len(words):
+                raise ShellError(f"unexpected `{words[k + 2].text}` after the tolerance",
+                                 words[k + 2].column)
+            tol = number(words[k + 1], "tol")
+            if tol < 0:
+                raise ShellError("tol must not be negative", words[k + 1].column)
+            words = words[:k]
+            break
+    if not words:
+        raise ShellError("no value after `=`", eq + 2)
+    values, texts = [], []
+    for x in words:
+        pos = x.start
+        for piece in x.text.split(","):
+            if piece:
+                wd = Word(piece, pos)
+                values.append(number(wd, "value"))
+                texts.append(piece)
+            pos += len(piece) + 1
+    if not values:
+        raise ShellError("no value after `=`", eq + 2)
+    return values, texts, tol

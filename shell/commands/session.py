@@ -1,0 +1,215 @@
+"""Sessions and housekeeping: save, replay, history, undo, reset, note, help, quit."""
+
+from __future__ import annotations
+
+import textwrap
+
+from engine.expr import FUNCTIONS
+from engine.families import FAMILIES
+
+from .. import script
+from ..registry import COMMANDS, GROUPS, LATER, NOTHING, Slot, command
+from ..replies import Reply
+from ..words import Line, Quit, ShellError, path_word
+from .common import say
+
+
+@command("save", usage="save FILE.qd [force]", group="session",
+         complete=lambda words, text: Slot(files=(".qd",)) if len(words) == 1
+         else Slot(words=("force",)),
+         help="""Writes the session to FILE.qd: a header with quadrat's version, the date and
+         the SHA-256 of every data file, then the commands that changed the state or asked a
+         question, as typed (undone ones left out), each question followed by a `check`
+         line with the numbers shown and a tolerance. The write is atomic: the old file
+         stays whole until the new one replaces it. An existing file is overwritten only if
+         `save` wrote it; `save FILE.qd force` overwrites any file.""")
+def save(app, line: Line):
+    w = line.words
+    if len(w) < 2:
+        raise ShellError("`save` needs a file name: save FILE.qd [force]", line.end_column())
+    force = False
+    if len(w) > 2:
+        if w[2].text != "force" or len(w) > 3:
+            bad = w[2] if w[2].text != "force" else w[3]
+            raise ShellError(f"unexpected `{bad.text}`; usage: save FILE.qd [force]", bad.column)
+        force = True
+    rep = script.save(app, path_word(w[1]), force=force, word=w[1])
+    extra = f", {rep.data_files} data file{'s' if rep.data_files != 1 else ''}" \
+        if rep.data_files else ""
+    app.printer.line(f"saved `{rep.path}`: {rep.commands} command"
+                     f"{'s' if rep.commands != 1 else ''}, {rep.checks} check"
+                     f"{'s' if rep.checks != 1 else ''}{extra}")
+
+
+_ALLOW = ("--allow-changed-data", "allow-changed-data")
+
+
+@command("replay", usage="replay FILE.qd [--allow-changed-data]", group="session",
+         complete=lambda words, text: Slot(files=(".qd",)) if len(words) == 1
+         else Slot(words=(_ALLOW[0],)),
+         help="""Runs a session file, line by line, as if typed. First it checks the SHA-256 of
+         every data file in the file's header and refuses a file that changed, naming it,
+         unless `--allow-changed-data` is given. It stops at the first error; every check
+         that moved is reported with its old and new value. Relative paths in the file are
+         read from the file's folder. Ctrl-C stops it and leaves the state as before.""")
+def replay(app, line: Line):
+    w = line.words
+    if len(w) < 2:
+        raise ShellError("`replay` needs a file name: replay FILE.qd", line.end_column())
+    allow = False
+    for x in w[2:]:
+        if x.text in _ALLOW and not allow:
+            allow = True
+        else:
+            raise ShellError(f"unexpected `{x.text}`; usage: replay FILE.qd "
+                             "[--allow-changed-data]", x.column)
+    path = path_word(w[1])
+    tally = script.replay(app, path, allow_changed_data=allow)
+    report(app, path, tally)
+    if tally.errors:
+        return Reply(status="error")
+    return Reply(status="failed" if tally.failed else "ok")
+
+
+def report(app, path: str, tally) -> None:
+    """One line on how a replay went."""
+    checks = tally.checked + tally.failed
+    if tally.errors:
+        app.printer.error(f"replay of `{path}` stopped at an error" if not app.keep_going else
+                          f"replay of `{path}` had {tally.errors} error"
+                          f"{'s' if tally.errors != 1 else ''}")
+    elif tally.failed:
+        app.printer.error(f"replayed `{path}`: {tally.failed} of {checks} checks moved")
+    elif checks:
+        app.printer.line(f"replayed `{path}`: all {checks} checks held", "ok")
+    else:
+        app.printer.line(f"replayed `{path}`")
+
+
+@command("history", usage="history", group="session",
+         complete=lambda words, text: NOTHING,
+         help="""Lists the commands of this session that `save` would keep, numbered: those
+         that changed the state or asked a question (undone ones are gone).""")
+def history(app, line: Line):
+    w = line.words
+    if len(w) > 1:
+        raise ShellError(f"unexpected `{w[1].text}`: `history` takes nothing", w[1].column)
+    if not app.log:
+        app.printer.line("nothing yet")
+        return
+    width = len(str(len(app.log)))
+    for i, e in enumerate(app.log, 1):
+        app.printer.line(f"{str(i).rjust(width)}  {e.text}")
+
+
+@command("undo", usage="undo", group="session", complete=lambda words, text: NOTHING,
+         help="""Undoes the last command that changed the state (a declaration, data, a
+         grid, a rule, a compute, a reset): everything is as it was before it, and it leaves
+         the session, with any questions asked after it.""")
+def undo(app, line: Line):
+    w = line.words
+    if len(w) > 1:
+        raise ShellError(f"unexpected `{w[1].text}`: `undo` takes nothing", w[1].column)
+    n = len(app.log)
+    e = app.undo()
+    dropped = n - len(app.log) - 1
+    tail = (f" (and the {dropped} question{'s' if dropped != 1 else ''} asked after it)"
+            if dropped else "")
+    app.printer.line(f"undone: `{e.text}`{tail}; the state is as it was before it")
+
+
+@command("reset", usage="reset", kind="change", group="session",
+         complete=lambda words, text: NOTHING,
+         help="""Clears the model, the data, the grids and the posterior. `undo` brings them
+         back.""")
+def reset(app, line: Line):
+    w = line.words
+    if len(w) > 1:
+        raise ShellError(f"unexpected `{w[1].text}`: `reset` takes nothing", w[1].column)
+    say(app, app.ws.reset())
+
+
+@command("note", usage="note TEXT", kind="note", group="session",
+         complete=lambda words, text: NOTHING,
+         help="""Prints TEXT. Session files use it for what a reader must see when the
+         session runs, such as a caution on how far its results may be taken; `save` keeps
+         it.""")
+def note(app, line: Line):
+    seg = line.rest(1)
+    if not seg.text:
+        raise ShellError("`note` needs some text", line.end_column())
+    app.printer.line(seg.text)
+
+
+@command("quit", usage="quit", group="session", complete=lambda words, text: NOTHING,
+         help="""Leaves quadrat (so does Ctrl-D at an empty prompt). Nothing is saved by
+         itself: `save FILE.qd` first to keep the session.""")
+def quit_(app, line: Line):
+    w = line.words
+    if len(w) > 1:
+        raise ShellError(f"unexpected `{w[1].text}`: `quit` takes nothing", w[1].column)
+    raise Quit()
+
+
+# ---------------------------------------------------------------------------
+# help
+
+def _complete_help(words, text):
+    if len(words) == 1:
+        return Slot(commands=True, families=True, functions=True,
+                    words=("families", "functions"))
+    return NOTHING
+
+
+@command("help", usage="help [COMMAND | FAMILY | FUNCTION | families | functions]",
+         group="session", complete=_complete_help,
+         help="""Lists the commands; `help COMMAND` tells what one does, `help families` and
+         `help functions` list the distributions and the functions formulas may use, and
+         `help NAME` describes one of them.""")
+def help_(app, line: Line):
+    w = line.words
+    width = app.printer.width
+    if len(w) == 1:
+        app.printer.lines(overview())
+        return
+    if len(w) > 2:
+        raise ShellError(f"unexpected `{w[2].text}`: help takes one name", w[2].column)
+    app.printer.lines(help_lines(w[1].text, width, column=w[1].column))
+
+
+def overview() -> list[str]:
+    out = []
+    for group, title in GROUPS:
+        cmds = [c for c in COMMANDS.values() if c.group == group]
+        if not cmds:
+            continue
+        out.append(title)
+        for c in cmds:
+            out.append("  " + c.usage)
+    out.append("`help COMMAND` tells more; `help families` and `help functions` list what")
+    out.append("formulas may use. `#` starts a comment.")
+    return out
+
+
+def help_lines(name: str, width: int, *, column: int | None = None) -> list[str]:
+    wrap = textwrap.TextWrapper(width=max(40, width - 1), initial_indent="  ",
+                                subsequent_indent="  ", break_on_hyphens=False)
+    if name in COMMANDS:
+        c = COMMANDS[name]
+        return [c.usage] + wrap.wrap(c.help)
+    if name == "families":
+        return [f"  {f.usage():<28} {f.support}" for f in FAMILIES.values()]
+    if name == "functions":
+        return ["  " + f.help for f in FUNCTIONS.values()]
+    if name in FAMILIES:
+        f = FAMILIES[name]
+        lines = [f.usage(), *wrap.wrap(f.help), f"  support: {f.support}"]
+        if f.constraints:
+            lines.append("  arguments: " + "; ".join(f.constraints))
+        lines.append("  right-censored rows: " + ("yes" if f.logsf is not None else "no"))
+        return lines
+    if name in FUNCTIONS:
+        return [FUNCTIONS[name].help]
+    if name in LATER:
+        return [f"`{name}` is not in this version of quadrat yet"]
+    raise ShellError(f"no help on `{name}`; `help` lists the commands", column)

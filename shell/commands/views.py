@@ -1,0 +1,290 @@
+"""Looking and exporting: show, plot, export."""
+
+from __future__ import annotations
+
+import datetime
+import os
+
+import numpy as np
+
+from engine import export as E
+from engine.errors import QuadratError
+from engine.model import ReducedTerm
+
+from .. import __version__
+from .. import render as R
+from ..registry import NOTHING, Slot, command
+from ..words import Line, ShellError, path_word
+from .common import notes
+
+# ---------------------------------------------------------------------------
+# show
+
+
+def _complete_show(words, text):
+    return Slot(words=("model", "data", "grid")) if len(words) == 1 else NOTHING
+
+
+@command("show", usage="show model | data | grid", group="view", complete=_complete_show,
+         help="""`show model` lists the parameters, priors, likelihoods and lets as declared,
+         then what compiling them says: truncated priors and the mass cut, improper priors,
+         and which sums over rows were reduced to sufficient statistics. `show data` lists
+         the columns and the files read, with their SHA-256. `show grid` gives the axes set,
+         the rule, and the grid of the posterior if there is one.""")
+def show(app, line: Line):
+    w = line.words
+    if len(w) != 2 or w[1].text not in ("model", "data", "grid"):
+        col = w[2].column if len(w) > 2 else (w[1].column if len(w) > 1 else line.end_column())
+        raise ShellError("usage: show model | data | grid", col)
+    app.printer.lines({"model": model_lines, "data": data_lines, "grid": grid_lines}[
+        w[1].text](app.ws))
+
+
+def model_lines(ws) -> list[str]:
+    s = ws.state
+    m = s.model
+    if not m.params and not m.likelihoods and not m.lets:
+        return ["no model yet: declare a parameter with `param NAME ...`"]
+    out = ["parameters"]
+    named = {pr.target: pr for pr in m.priors if pr.target is not None}
+    width = max((len(p.name) for p in m.params), default=0)
+    for p in m.params:
+        out.append(f"  {p.name.ljust(width)}  {p.describe()}")
+    out.append("priors")
+    for p in m.params:
+        pr = named.get(p.name)
+        if pr is not None:
+            out.append(f"  {p.name} ~ {pr.text}")
+        elif p.bounded or p.discrete:
+            out.append(f"  {p.name}: none given, so uniform on its domain")
+        else:
+            out.append(f"  {p.name}: none given, so flat on an unbounded domain (improper)")
+    for pr in m.priors:
+        if pr.target is None:
+            out.append(f"  log {pr.text}  (a free term)")
+    if m.likelihoods:
+        out.append("likelihoods")
+        for lk in m.likelihoods:
+            if lk.column is None:
+                out.append(f"  log {lk.text}  (a free term)")
+            else:
+                cens = f" censored {lk.censor}" if lk.censor else ""
+                out.append(f"  {lk.column} ~ {lk.text}{cens}")
+    if m.lets:
+        out.append("lets")
+        for lt in m.lets:
+            out.append(f"  {lt.name} = {lt.text}")
+    if not m.params:
+        return out
+    try:
+        c = ws.compiled()
+    except QuadratError as exc:
+        out.append(f"as compiled: does not compile yet: {exc}")
+        return out
+    out.append("as compiled")
+    for part in c.likelihood:
+        reduced = any(isinstance(t, ReducedTerm) for t in part.terms)
+        how = "sums reduced to sufficient statistics" if reduced else "summed row by row"
+        rows = f"{part.rows} row{'s' if part.rows != 1 else ''}" if part.rows else "no rows"
+        out.append(f"  likelihood `{part.key}`: {rows}, {how}")
+    for n in c.notes:
+        out.append(f"  {n}")
+    for n in c.improper:
+        out.append(f"  improper: {n}; the evidence is not defined")
+    if c.proper:
+        out.append("  the prior is proper: the evidence is defined")
+    return out
+
+
+def _short(values: np.ndarray, k: int = 6) -> str:
+    vals = [R.num(v) for v in values[:k]]
+    return ", ".join(vals) + (", ..." if len(values) > k else "")
+
+
+def data_lines(ws) -> list[str]:
+    d = ws.state.data
+    if not d.columns:
+        return ["no data yet: `data NAME = v1, v2, ...` or `data load FILE.csv`"]
+    rows = []
+    for c in d.columns:
+        v = c.values
+        rows.append([c.name, str(c.rows), c.table or "typed", R.num(float(v.min())),
+                     R.num(float(v.max())), R.num(float(v.mean())), _short(v)])
+    out = R.table(["column", "rows", "from", "min", "max", "mean", "values"], rows,
+                  align="lrlrrrl")
+    if d.files:
+        out.append("files")
+        for f in d.files:
+            out.append(f"  {f.path}  {f.rows} rows  sha256 {f.sha256}")
+    return out
+
+
+def grid_lines(ws) -> list[str]:
+    s = ws.state
+    out = [f"rule {s.rule}"]
+    names = s.model.param_names
+    for n in names:
+        spec = s.spec(n)
+        if spec is None:
+            out.append(f"  {n}: not set (found by `grid auto` when computing)")
+        else:
+            pts = f", {spec.n} points" if spec.n else ""
+            sc = f", {spec.scale} scale" if spec.scale else ""
+            out.append(f"  {n}: {R.num(spec.lo)} .. {R.num(spec.hi)}{pts}{sc}")
+    post = s.posterior
+    if post is not None:
+        st = ws.status().posterior
+        out.append(f"the posterior ({st}) was computed on {R.count(post.grid.size)} points:")
+        for a in post.grid.axes:
+            out.append("  " + a.describe())
+    return out
+
+
+# ---------------------------------------------------------------------------
+# plot
+
+def _complete_plot(words, text):
+    return Slot(params=True) if len(words) in (1, 2) else NOTHING
+
+
+@command("plot", usage="plot NAME [NAME2]", group="view", complete=_complete_plot,
+         help="""Draws the posterior marginal of a parameter in the terminal, with its central
+         95% interval marked (a discrete parameter as bars); with two names, their joint
+         posterior as a density picture. The picture fits the terminal's width.""")
+def plot(app, line: Line):
+    from .. import plots  # drawn by its own module
+
+    w = line.words
+    if len(w) < 2:
+        raise ShellError("`plot` needs a parameter: plot NAME [NAME2]", line.end_column())
+    if len(w) > 3:
+        raise ShellError(f"unexpected `{w[3].text}`; usage: plot NAME [NAME2]", w[3].column)
+    params = app.ws.state.model.param_names
+    for x in w[1:]:
+        if x.text not in params:
+            raise ShellError(f"no parameter `{x.text}`", x.column)
+    if len(w) == 3 and w[1].text == w[2].text:
+        raise ShellError("a joint plot needs two different parameters", w[2].column)
+    post, why = app.ws.posterior()
+    notes(app, why)
+    p = app.printer
+    try:
+        if len(w) == 2:
+            m = post.marginal(w[1].text)
+            iv = None
+            if not m.discrete and len(m.values) > 2:
+                iv = tuple(m.central(0.95))
+            k = crop(m.mass)
+            text = plots.marginal(m.values[k], m.density()[k], name=m.name, width=p.width,
+                                  height=20, discrete=m.discrete, interval=iv, color=p.color)
+        else:
+            a, b = w[1].text, w[2].text
+            mass = post.pair(a, b)
+            i, j = crop(mass.sum(axis=1)), crop(mass.sum(axis=0))
+            text = plots.joint(post.grid.axis(a).values[i], post.grid.axis(b).values[j],
+                               mass[i, j], xname=a, yname=b, width=p.width, height=24,
+                               color=p.color)
+    except ValueError as exc:
+        raise ShellError(f"cannot draw it: {exc}") from None
+    p.lines(text.splitlines())
+
+
+def crop(mass: np.ndarray, tail: float = 1e-4) -> slice:
+    """The nodes that matter to a picture: from where the mass below reaches
+    `tail` to where the mass above falls under it, one node of margin each
+    side. A grid reaching far into the tails would otherwise squeeze the
+    posterior into a few columns."""
+    total = float(np.sum(mass))
+    if not total > 0 or mass.size < 3:
+        return slice(None)
+    c = np.cumsum(mass) / total
+    lo = int(np.searchsorted(c, tail))
+    hi = int(np.searchsorted(c, 1 - tail)) + 1
+    lo, hi = max(lo - 1, 0), min(hi + 1, mass.size)
+    if hi - lo < 3:
+        return slice(None)
+    return slice(lo, hi)
+
+
+# ---------------------------------------------------------------------------
+# export
+
+EXPORT_USAGE = "export FILE.csv | FILE.json [force]  or  export summary FILE.csv [force]"
+
+
+def _complete_export(words, text):
+    if len(words) == 1:
+        return Slot(words=("summary",), files=(".csv", ".json"))
+    if len(words) == 2 and words[1] == "summary":
+        return Slot(files=(".csv",))
+    return Slot(words=("force",))
+
+
+def may_write(app, path: str, force: bool, word) -> None:
+    """Refuse to overwrite a file this session did not write, unless forced."""
+    if force or not os.path.exists(path):
+        return
+    if os.path.realpath(path) in app.written:
+        return
+    raise ShellError(f"`{path}` exists and this session did not write it; add `force` to "
+                     "overwrite it", word.column)
+
+
+@command("export", usage=EXPORT_USAGE, group="view", complete=_complete_export,
+         help="""Writes the posterior to a file. `FILE.csv` gets every marginal as one long
+         table (parameter, value, density, mass); `export summary FILE.csv` the summary table
+         with estimated errors; `FILE.json` both, with the log evidence and the grid. An
+         existing file that this session did not write is kept unless `force` is given; the
+         write is atomic.""")
+def export(app, line: Line):
+    w = list(line.words[1:])
+    force = bool(w) and w[-1].text == "force"
+    if force:
+        w = w[:-1]
+    what = "marginals"
+    if w and w[0].text == "summary":
+        what, w = "summary", w[1:]
+    if len(w) != 1:
+        if not w:
+            raise ShellError(f"`export` needs a file name: {EXPORT_USAGE}", line.end_column())
+        raise ShellError(f"unexpected `{w[1].text}`; usage: {EXPORT_USAGE}", w[1].column)
+    word = w[0]
+    path = path_word(word)
+    ext = os.path.splitext(path)[1].lower()
+    if ext not in E.FORMATS:
+        raise ShellError(f"`{path}`: export writes .csv or .json files", word.column)
+    if what == "summary" and ext != ".csv":
+        raise ShellError("`export summary` writes a .csv file; JSON holds the summary anyway",
+                         word.column)
+    full = app.ws.resolve(path)
+    may_write(app, full, force, word)
+    summary = app.ws.summary()
+    notes(app, summary.notes)
+    post = app.ws.state.posterior
+    meta = {"quadrat": __version__,
+            "exported": datetime.datetime.now(datetime.timezone.utc).isoformat(timespec="seconds"),
+            "model": session_model_text(app.ws)}
+    rep = E.export(full, post, summary, what=what, meta=meta)
+    app.written.add(os.path.realpath(full))
+    kind = {"marginals": "marginals", "summary": "summary", "all": "summary and marginals"}
+    unit = "parameters" if rep.what == "all" else "rows"
+    app.printer.line(f"wrote {kind[rep.what]} to `{path}` ({rep.rows} {unit}, "
+                     f"{R.bytes_text(rep.bytes)})")
+
+
+def session_model_text(ws) -> list[str]:
+    """The model's declarations, one line each (for the JSON export)."""
+    m = ws.state.model
+    out = [f"param {p.name}: {p.describe()}" for p in m.params]
+    for pr in m.priors:
+        out.append(f"prior {pr.target} ~ {pr.text}" if pr.target else f"prior log {pr.text}")
+    for lk in m.likelihoods:
+        if lk.column is None:
+            out.append(f"likelihood log {lk.text}")
+        else:
+            out.append(f"likelihood {lk.column} ~ {lk.text}" +
+                       (f" censored {lk.censor}" if lk.censor else ""))
+    for lt in m.lets:
+        out.append(f"let {lt.name} = {lt.text}")
+    return out
+

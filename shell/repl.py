@@ -1,0 +1,81 @@
+"""The interactive loop: prompt_toolkit with completion, history and toolbar.
+
+`Repl` takes prompt_toolkit's `input` and `output` so that tests drive it with
+`create_pipe_input()` and `DummyOutput()`. Each line goes through the same
+`App.run` as batch use.
+"""
+
+from __future__ import annotations
+
+import os
+
+from prompt_toolkit import PromptSession
+from prompt_toolkit.history import FileHistory, History, InMemoryHistory
+
+from . import __version__
+from .app import App
+from .completer import Names, ShellCompleter
+from .keys import bindings
+from .paths import history_file
+from .toolbar import toolbar_text
+from .words import Quit
+
+PROMPT = "quadrat> "
+
+
+def default_history() -> History:
+    """History kept in the XDG state folder (in memory if that cannot be written)."""
+    path = history_file()
+    try:
+        os.makedirs(os.path.dirname(path), exist_ok=True)
+        with open(path, "a", encoding="utf-8"):
+            pass
+        return FileHistory(path)
+    except OSError:
+        return InMemoryHistory()
+
+
+class Repl:
+    """The prompt loop over an `App`.
+
+    Parameters
+    ----------
+    app : App
+    input, output : prompt_toolkit Input and Output, optional
+        The terminal by default; a pipe input and `DummyOutput` in tests.
+    history : prompt_toolkit History, optional
+        By default a file under the XDG state folder.
+    """
+
+    def __init__(self, app: App, *, input=None, output=None, history: History | None = None):
+        self.app = app
+        self.session = PromptSession(
+            PROMPT,
+            completer=ShellCompleter(lambda: Names.of(app.ws)),
+            complete_while_typing=False,
+            history=history if history is not None else default_history(),
+            bottom_toolbar=self.toolbar,
+            key_bindings=bindings(),
+            input=input,
+            output=output,
+        )
+
+    def toolbar(self) -> str:
+        return toolbar_text(self.app.ws.status(), self.app.printer.width)
+
+    def run(self) -> int:
+        """Read and run lines until `quit` or Ctrl-D; returns the exit status."""
+        self.app.printer.line(f"quadrat {__version__}: `help` lists the commands; Ctrl-D or "
+                              "`quit` leaves")
+        while True:
+            try:
+                text = self.session.prompt()
+            except KeyboardInterrupt:
+                continue
+            except EOFError:
+                break
+            try:
+                self.app.run(text)
+            except Quit:
+                break
+        return 0

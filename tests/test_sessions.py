@@ -1,0 +1,95 @@
+"""The demo sessions in sessions/: each replays end to end in a subprocess with all
+of its checks holding; together they cover a bounded, a positive and a discrete
+parameter and a 2-D plot; each says in its first comment that its data are
+invented, and those touching health or safety print the caution."""
+
+from __future__ import annotations
+
+import math
+import os
+import re
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+import scipy.special as sc
+import scipy.stats as st
+
+ROOT = Path(__file__).resolve().parent.parent
+SESSIONS = sorted((ROOT / "sessions").glob("*.qd"))
+CAUTION = ("These results are statistical estimates: review them under local rules and "
+           "licensed practice before anyone acts on them.")
+
+
+def replay(path: Path) -> subprocess.CompletedProcess:
+    env = dict(os.environ, NO_COLOR="1", COLUMNS="100")
+    return subprocess.run([sys.executable, "-m", "shell.main", str(path.relative_to(ROOT))],
+                          cwd=ROOT, capture_output=True, text=True, timeout=300, env=env)
+
+
+@pytest.fixture(scope="module")
+def runs():
+    return {p.name: replay(p) for p in SESSIONS}
+
+
+def test_there_are_at_least_three_sessions():
+    assert len(SESSIONS) >= 3
+
+
+@pytest.mark.parametrize("path", SESSIONS, ids=lambda p: p.name)
+def test_session_replays_with_every_check_holding(path, runs):
+    proc = runs[path.name]
+    assert proc.returncode == 0, proc.stderr
+    assert proc.stderr == ""
+    held = re.search(r"replayed `.*`: all (\d+) checks held\n$", proc.stdout)
+    assert held is not None and int(held.group(1)) >= 5
+    assert int(held.group(1)) == path.read_text().count("\ncheck ")
+
+
+@pytest.mark.parametrize("path", SESSIONS, ids=lambda p: p.name)
+def test_session_says_its_data_are_invented(path):
+    first = path.read_text().splitlines()[0]
+    assert first.startswith("#") and "invented" in first.lower()
+
+
+def test_sessions_cover_bounded_positive_discrete_and_a_joint_plot():
+    text = "\n".join(p.read_text() for p in SESSIONS)
+    assert re.search(r"^param \w+ (unit|in )", text, re.M)
+    assert re.search(r"^param \w+ positive", text, re.M)
+    assert re.search(r"^param \w+ (int|set) ", text, re.M)
+    assert re.search(r"^plot \w+ \w+\s*$", text, re.M)
+
+
+@pytest.mark.parametrize("name", ["prevalence.qd", "pump_failures.qd"])
+def test_health_and_safety_sessions_print_the_caution(name, runs):
+    assert CAUTION in runs[name].stdout
+    assert CAUTION in (ROOT / "sessions" / name).read_text()
+
+
+def test_the_joint_plot_fits_the_width(runs):
+    out = runs["population.qd"].stdout
+    assert "low .:-=+*#%@ high" in out or "density" in out
+    assert max(len(line) for line in out.splitlines()) <= 100
+
+
+def test_defects_session_agrees_with_the_gamma_poisson_closed_form(runs):
+    # counts y_i ~ poisson(rate), rate ~ gamma(2, rate 1): posterior gamma(2 + S, 1 + n);
+    # evidence = 1^2 / G(2) * G(2 + S) / (1 + n)^(2 + S) / prod y_i! (gamma-Poisson
+    # conjugacy, common practice), evaluated with scipy
+    y = np.loadtxt(ROOT / "sessions" / "defects.csv", delimiter=",", skiprows=1)[:, 1]
+    S, n = y.sum(), len(y)
+    post = st.gamma(2 + S, scale=1 / (1 + n))
+    log_z = (sc.gammaln(2 + S) - sc.gammaln(2) - (2 + S) * math.log(1 + n)
+             - sc.gammaln(y + 1).sum())
+    out = runs["defects.qd"].stdout
+    row = re.search(r"^rate\s+(\S+)\s+(\S+)\s+(\S+)\s+(\S+)\s+(\S+)$", out, re.M).groups()
+    got = [float(x) for x in row]
+    ref = [post.mean(), post.std(), post.ppf(0.025), post.ppf(0.5), post.ppf(0.975)]
+    for g, r in zip(got, ref):
+        assert g == pytest.approx(r, rel=3e-6)
+    ev = float(re.search(r"^log evidence = (\S+)", out, re.M).group(1))
+    assert ev == pytest.approx(log_z, abs=1e-4)
+    p = float(re.search(r"^P\(rate < 2\) = (\S+)", out, re.M).group(1))
+    assert p == pytest.approx(post.cdf(2), abs=1e-6)
