@@ -12,6 +12,7 @@ import hashlib
 import io
 import math
 import os
+import stat
 from dataclasses import dataclass, field, replace
 
 import numpy as np
@@ -201,11 +202,19 @@ def read_csv(path: str) -> CsvTable:
     """
     name = os.path.basename(path)
     try:
-        size = os.path.getsize(path)
-        if size > MAX_FILE_BYTES:
-            raise DataError(f"file `{name}` is {size:,} bytes; the limit is {MAX_FILE_BYTES:,}")
+        st_ = os.stat(path)
+        if stat.S_ISDIR(st_.st_mode):
+            raise IsADirectoryError
+        if not stat.S_ISREG(st_.st_mode):
+            raise DataError(f"`{path}` is not a regular file (a device or a pipe); "
+                            "save the data to a CSV file first")
+        if st_.st_size > MAX_FILE_BYTES:
+            raise DataError(f"file `{name}` is {st_.st_size:,} bytes; the limit is "
+                            f"{MAX_FILE_BYTES:,}")
         with open(path, "rb") as fh:
-            raw = fh.read()
+            raw = fh.read(MAX_FILE_BYTES + 1)
+        if len(raw) > MAX_FILE_BYTES:
+            raise DataError(f"file `{name}` is larger than {MAX_FILE_BYTES:,} bytes")
     except FileNotFoundError:
         raise DataError(f"file `{path}` does not exist") from None
     except IsADirectoryError:

@@ -111,7 +111,8 @@ def _cauchy(x, m, s):
 
 def _cauchy_sf(x, m, s):
     z = (x - m) / s
-    return Term(sp.log(sp.Rational(1, 2) - sp.atan(z) / sp.pi), _pos(s))
+    # 1/2 - atan(z)/pi, written as atan2(1, z)/pi: no cancellation in the upper tail
+    return Term(sp.log(sp.atan2(1, z) / sp.pi), _pos(s))
 
 
 def _lognormal(x, m, s):
@@ -120,7 +121,8 @@ def _lognormal(x, m, s):
 
 
 def _lognormal_sf(x, m, s):
-    return Term(S.log_ndtr(-(sp.log(x) - m) / s), _pos(s) + (sp.Gt(x, 0),))
+    # P(X > 0) = 1: a right-censored value may be 0 (log(0) = -inf gives log_ndtr(inf) = 0)
+    return Term(S.log_ndtr(-(sp.log(x) - m) / s), _pos(s) + (sp.Ge(x, 0),))
 
 
 def _exponential(x, r):
@@ -146,7 +148,8 @@ def _inv_gamma(x, a, s):
 
 
 def _inv_gamma_sf(x, a, s):
-    return Term(sp.log(S.gammainc(a, s / x)), _pos(a, s) + (sp.Gt(x, 0),))
+    # P(X > 0) = 1: at x = 0, s/x = inf and gammainc(a, inf) = 1
+    return Term(sp.log(S.gammainc(a, s / x)), _pos(a, s) + (sp.Ge(x, 0),))
 
 
 def _beta(x, a, b):
@@ -156,7 +159,7 @@ def _beta(x, a, b):
 
 
 def _beta_sf(x, a, b):
-    return Term(sp.log(S.betaincc(a, b, x)), _pos(a, b) + (sp.Ge(x, 0), sp.Le(x, 1)))
+    return Term(S.log_betaincc(a, b, x), _pos(a, b) + (sp.Ge(x, 0), sp.Le(x, 1)))
 
 
 def _uniform(x, lo, hi):
@@ -189,7 +192,8 @@ def _half_cauchy(x, s):
 
 
 def _half_cauchy_sf(x, s):
-    return Term(sp.log(1 - 2 * sp.atan(x / s) / sp.pi), _pos(s) + (sp.Ge(x, 0),))
+    # 1 - 2 atan(x/s)/pi, written as 2 atan2(1, x/s)/pi: no cancellation in the tail
+    return Term(sp.log(2 * sp.atan2(1, x / s) / sp.pi), _pos(s) + (sp.Ge(x, 0),))
 
 
 def _softplus(z):
@@ -260,7 +264,7 @@ def _neg_binomial(x, r, p):
 
 
 def _neg_binomial_sf(x, r, p):
-    return Term(sp.log(S.betaincc(r, x + 1, p)), (sp.Gt(r, 0), sp.Gt(p, 0), sp.Le(p, 1),
+    return Term(S.log_betaincc(r, x + 1, p), (sp.Gt(r, 0), sp.Gt(p, 0), sp.Le(p, 1),
                                             sp.Ge(x, 0), _int(x)))
 
 

@@ -1019,7 +1019,11 @@ def compile_model(model: Model, data: DataSet, *, reduce: bool = True,
                     terms.append(_param_term(t.expr, pconds + mixed, params))
                     symbolic.append((t.expr, (), ()))
                 continue
-            colvals = [np.ascontiguousarray(data.values(n)[sel]) for n in cols]
+            # columns of another length are not read by this term (its own were
+            # checked to agree above): stand-ins keep the row axis aligned
+            colvals = [np.ascontiguousarray(data.values(n)[sel])
+                       if data.get(n).rows == nrows else np.zeros(int(sel.sum()))
+                       for n in cols]
             if not sel.any():
                 continue
             const, donly, pconds, mixed = _split_conds(t.conds, pset, dset)

@@ -89,7 +89,7 @@ def _sub_grid(grid: Grid, target: int) -> Grid:
             axes.append(a)
             continue
         n = max(5, min(a.n, int(round(a.n * f))))
-        n += 1 - n % 2
+        n = min(a.n, n + 1 - n % 2)
         kind = "interval" if math.isfinite(a.dom_lo) and math.isfinite(a.dom_hi) else (
             "positive" if math.isfinite(a.dom_lo) else "real")
         p = Param(a.name, kind, a.dom_lo, a.dom_hi)
@@ -103,6 +103,11 @@ def timing(compiled: Compiled, grid: Grid, *, small: int = 16_384, large: int = 
     computes of the real pass on two smaller grids of the same shape on this
     machine (so every overhead of the pass is counted, not only the density)."""
     from .posterior import compute
+    smallest = math.prod(a.n if a.discrete else min(a.n, 5) for a in grid.axes)
+    if smallest > large:
+        # too many dimensions for a small grid of the same shape: time the density and
+        # the reduction on sample points instead
+        return 0.0, _sampled_seconds(compiled, grid)
     if grid.size <= large:
         g = grid
         t0 = time.perf_counter()
@@ -124,15 +129,49 @@ def timing(compiled: Compiled, grid: Grid, *, small: int = 16_384, large: int = 
     return max(t2 - slope * n2, 0.0), slope
 
 
+def _sampled_seconds(compiled: Compiled, grid: Grid, sample: int = 20_000) -> float:
+    """Seconds per point from the density and a reduction's share on random points."""
+    rng = np.random.default_rng(0)
+    idx = tuple(rng.integers(0, a.n, size=sample) for a in grid.axes)
+    theta = [a.values[i] for a, i in zip(grid.axes, idx)]
+    evaluate_block(compiled, theta)
+    best = math.inf
+    for _ in range(3):
+        t0 = time.perf_counter()
+        lp = evaluate_block(compiled, theta)
+        lw = np.zeros(sample)
+        for a, i in zip(grid.axes, idx):
+            lw += a.logw[i]
+        w = np.exp(lp + lw - np.max(lp + lw))
+        for _lev in range(grid.levels + 1):
+            for a, i in zip(grid.axes, idx):
+                np.bincount(i, weights=w, minlength=a.n)
+        best = min(best, time.perf_counter() - t0)
+    return best / sample
+
+
 def seconds_per_point(compiled: Compiled, grid: Grid) -> float:
     """Measured seconds per grid point of the whole pass (density and reduction)."""
     return timing(compiled, grid)[1]
 
 
-def estimate(compiled: Compiled, grid: Grid, *, pairs: int = 0) -> Cost:
-    """Points, memory and predicted seconds of computing on `grid`."""
+#: A quick estimate above this many seconds is replaced by the precise one.
+QUICK_SECONDS = 2.0
+#: The reduction's share of a pass, over the density's, on sample points (measured
+#: on this kind of machine with tests/bench_cost.py; only used for a first look).
+QUICK_FACTOR = 2.0
+
+
+def estimate(compiled: Compiled, grid: Grid, *, pairs: int = 0, precise: bool = False) -> Cost:
+    """Points, memory and predicted seconds of computing on `grid`.
+
+    A quick estimate times the density on sample points; when that predicts more
+    than `QUICK_SECONDS`, or when `precise`, the real pass is timed on two smaller
+    grids of the same shape (`timing`)."""
     points = math.prod(a.n for a in grid.axes)
-    fixed, spp = timing(compiled, grid)
+    fixed, spp = 0.0, _sampled_seconds(compiled, grid, 4096) * QUICK_FACTOR
+    if precise or spp * points > QUICK_SECONDS:
+        fixed, spp = timing(compiled, grid)
     mem = memory_for(points, [a.n for a in grid.axes], pairs, levels=grid.levels)
     return Cost(points, mem, fixed + spp * points, spp, machine_memory())
 

@@ -145,7 +145,9 @@ class Marginal:
     @property
     def sd(self) -> float:
         m = self.mean
-        return float(math.sqrt(max(np.dot(self.mass, (self.values - m) ** 2), 0.0)))
+        with np.errstate(over="ignore", invalid="ignore"):
+            v = float(np.dot(self.mass, (self.values - m) ** 2))
+        return math.sqrt(v) if v >= 0 else math.nan
 
     def density(self) -> np.ndarray:
         """Density in the parameter's units at the nodes (the pmf if discrete)."""
@@ -471,6 +473,10 @@ class _Acc:
         self.M = new_m
 
     def add(self, level: int, w: np.ndarray, idx, theta_c: np.ndarray):
+        with np.errstate(over="ignore", invalid="ignore"):
+            self._add(level, w, idx, theta_c)
+
+    def _add(self, level: int, w: np.ndarray, idx, theta_c: np.ndarray):
         self.Z[level] += w.sum()
         for d, i in enumerate(idx):
             self.marg[d][level] += np.bincount(i, weights=w, minlength=self.marg[d].shape[1])
@@ -636,8 +642,9 @@ def compute(compiled: Compiled, grid: Grid, *, block: int = BLOCK,
         raise ComputeError("the posterior is zero at every grid point: the data are impossible "
                            "under the model on this grid (check the data, the supports and the "
                            "grid bounds)")
-    post = _finish(compiled, grid, acc, levels, pairs, best_flat, best_lp, zero, logp_all,
-                   time.perf_counter() - t0)
+    with np.errstate(all="ignore"):
+        post = _finish(compiled, grid, acc, levels, pairs, best_flat, best_lp, zero, logp_all,
+                       time.perf_counter() - t0)
     return replace(post, evaluated=evaluated)
 
 

@@ -65,11 +65,19 @@ def _compile(post: Posterior, expr: sp.Basic) -> tuple[sp.Basic, ParamFunction]:
     return e, param_function(e, post.compiled.params)
 
 
-def _levels_estimate(post: Posterior, vals: Sequence[float]) -> Estimate:
+def _levels_estimate(post: Posterior, vals: Sequence[float], *,
+                     smooth: bool = True) -> Estimate:
+    """Combine the values of the fine and coarse levels into an `Estimate`.
+
+    ``smooth=False`` is for the cell-fraction answers of conditions: their error
+    is of second order in the spacing but not a clean power series (it moves
+    with where the boundary cuts the cells), so neither extrapolation nor a
+    projected geometric decay is justified; the difference with the first
+    coarse level is the error."""
     exact = all(a.discrete for a in post.grid.axes)
     order = min((a.order for a in post.grid.axes if not a.discrete), default=2)
     return combine(vals[0], vals[1] if len(vals) > 1 else None,
-                   vals[2] if len(vals) > 2 else None, order=order, exact=exact)
+                   vals[2] if len(vals) > 2 and smooth else None, order=order, exact=exact)
 
 
 # ---------------------------------------------------------------------------
@@ -205,6 +213,44 @@ def _judge(tree, fr: list[np.ndarray], n: int) -> np.ndarray:
     return out
 
 
+def _one_param_set(cond: sp.Basic, post: Posterior):
+    """A condition on one continuous parameter made of ``param OP number``
+    comparisons joined by and / or / not (``0.2 < p < 0.4``): the parameter's
+    name and the intervals where it holds, so that the marginal's cdf answers
+    it (accurately) instead of the cell fractions. None for any other condition."""
+    syms = cond.free_symbols
+    if len(syms) != 1:
+        return None
+    sym = next(iter(syms))
+    par = [p for p in post.compiled.params if p.symbol == sym and not p.discrete]
+    if not par:
+        return None
+    cuts = set()
+    for r in cond.atoms(sp.core.relational.Relational):
+        if type(r) not in _OPS or _OPS[type(r)] in ("eq", "ne"):
+            return None
+        if r.lhs == sym and r.rhs.is_number:
+            cuts.add(float(r.rhs))
+        elif r.rhs == sym and r.lhs.is_number:
+            cuts.add(float(r.lhs))
+        else:
+            return None
+    if not cuts:
+        return None
+    cuts = sorted(cuts)
+    ends = [-math.inf] + cuts + [math.inf]
+    pieces: list[tuple[float, float]] = []
+    for a, b in zip(ends[:-1], ends[1:]):
+        mid = (a + b) / 2 if math.isfinite(a) and math.isfinite(b) else (
+            b - 1.0 if math.isfinite(b) else a + 1.0)
+        if bool(cond.subs(sym, mid)):
+            if pieces and pieces[-1][1] == a:
+                pieces[-1] = (pieces[-1][0], b)
+            else:
+                pieces.append((a, b))
+    return par[0].name, pieces
+
+
 def _single_param(cond: sp.Basic, post: Posterior):
     """``param OP number`` for a continuous parameter: (name, op, value) or None."""
     if type(cond) not in _OPS or _OPS[type(cond)] in ("eq", "ne"):
@@ -229,13 +275,17 @@ def probability(post: Posterior, cond: sp.Basic) -> Estimate:
     if bad:
         raise ModelError(f"`{sorted(bad)[0]}` is a data column; a question is about "
                          "parameters and lets")
-    single = _single_param(e, post)
+    single = _single_param(e, post) or _one_param_set(e, post)
     if single is not None:
-        name, op, x = single
+        if len(single) == 3:
+            name, op, x = single
+            pieces = [(-math.inf, x)] if op in ("lt", "le") else [(x, math.inf)]
+        else:
+            name, pieces = single
         vals = []
         for m in post._levels_of(name):
-            c = m.cdf(x)
-            vals.append(c if op in ("lt", "le") else 1.0 - c)
+            vals.append(sum((1.0 if b == math.inf else m.cdf(b)) -
+                            (0.0 if a == -math.inf else m.cdf(a)) for a, b in pieces))
         return _levels_estimate(post, vals)
     tree, rels = _relations(e, post)
     L = post.levels + 1
@@ -252,7 +302,7 @@ def probability(post: Posterior, cond: sp.Basic) -> Estimate:
             tot[lev] += np.dot(ws[lev], ind)
             norm[lev] += ws[lev].sum()
     vals = [float(np.clip(tot[k] / norm[k], 0.0, 1.0)) for k in range(L)]
-    return _levels_estimate(post, vals)
+    return _levels_estimate(post, vals, smooth=False)
 
 
 # ---------------------------------------------------------------------------
@@ -308,7 +358,7 @@ def quantile(post: Posterior, expr: sp.Expr, q: float) -> Estimate:
             out.append(None)
     if out[0] is None:
         raise ComputeError("could not solve for the quantile")
-    return _levels_estimate(post, out)
+    return _levels_estimate(post, out, smooth=False)
 
 
 def _prob_le(post: Posterior, e: sp.Expr, x: float, lev: int) -> float:

@@ -9,6 +9,7 @@ every axis on a coarse pass, widening until it is below a threshold.
 from __future__ import annotations
 
 import math
+import warnings
 from dataclasses import dataclass, field
 from typing import Sequence
 
@@ -135,7 +136,12 @@ class _Target:
 
     def __call__(self, U: np.ndarray) -> np.ndarray:
         U = np.atleast_2d(U)
-        lp = evaluate_block(self.c, self.theta(U))
+        with np.errstate(all="ignore"):
+            lp = evaluate_block(self.c, self.theta(U))
+        # beyond the scales' limits values round to the domain's edge: out of bounds
+        for k, scale in enumerate(self.scales):
+            lo, hi = U_LIMITS[scale]
+            lp = np.where((U[:, k] < lo) | (U[:, k] > hi), -np.inf, lp)
         for k, p in enumerate(self.cont):
             lp = lp + _logjac(U[:, k], self.scales[k], p)
         return np.where(np.isnan(lp), -np.inf, lp)
@@ -201,6 +207,12 @@ def find_modes(compiled: Compiled, fixed: dict[str, float], *, starts: int = 8,
     deviation from the curvature there, best first; modes closer than two sds
     to a better one are merged into it.
     """
+    with np.errstate(all="ignore"), warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        return _find_modes(compiled, fixed, starts=starts, seed=seed)
+
+
+def _find_modes(compiled: Compiled, fixed: dict[str, float], *, starts: int, seed: int):
     target = _Target(compiled, fixed)
     d = len(target.cont)
     if d == 0:
@@ -250,6 +262,8 @@ def _symbolic_hessian_u(target: _Target, x: np.ndarray) -> np.ndarray | None:
     for k, (p, scale) in enumerate(zip(target.cont, target.scales)):
         u = x[k]
         if scale == "log":
+            if u > 700:
+                return None
             d1[k] = d2[k] = math.exp(u)
             lj2[k] = 0.0
         elif scale == "logit":
@@ -424,6 +438,11 @@ def auto_grid(compiled: Compiled, *, points: dict[str, int] | None = None,
     for p in cont:
         lo_lim, hi_lim = U_LIMITS[scales[p.name]]
         m_lo, m_hi = edge.get(p.name, (0.0, 0.0))
+        if m_hi > per_end and hi_u[p.name] >= hi_lim and scales[p.name] == "log":
+            # the log scale's top is a value near 1e304, not a domain edge
+            if p.name not in improper:
+                improper.append(p.name)
+            continue
         if m_hi > per_end and hi_u[p.name] >= hi_lim:
             limited.append(f"the mass beyond the upper end of `{p.name}` stays at {m_hi:.2g}: "
                            f"values closer to {p.hi:g} are not distinct from it in double precision")

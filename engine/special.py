@@ -144,6 +144,12 @@ class betaincc(_NoDerivative):
     nargs = 3
 
 
+class log_betaincc(_NoDerivative):
+    """``log(1 - I_x(a, b))``, accurate also where ``I_x(a, b)`` is tiny."""
+
+    nargs = 3
+
+
 class stdtr(_NoDerivative):
     """Student-t cdf, args ``(df, t)``."""
 
@@ -173,6 +179,14 @@ def _bbinom_sf(k, n, a, b):
     return st.betabinom.sf(k, n, a, b)
 
 
+def _log_betaincc(a, b, x):
+    # betaincc rounds 1 - 1e-10 to 1.0 at some arguments; log1p(-I) keeps it where
+    # I is small, log(betaincc) keeps the far tail where I is near 1
+    with np.errstate(all="ignore"):
+        i = sc.betainc(a, b, x)
+        return np.where(i < 0.5, np.log1p(-i), np.log(sc.betaincc(a, b, x)))
+
+
 def _stdtr(df, t):
     # scipy.special.stdtr's df must be positive; NaN where it is not
     return sc.stdtr(df, t)
@@ -191,6 +205,7 @@ NAMESPACE = {
     "gammaincc": sc.gammaincc,
     "gammainc": sc.gammainc,
     "betaincc": sc.betaincc,
+    "log_betaincc": _log_betaincc,
     "stdtr": _stdtr,
     "pdtrc": sc.pdtrc,
     "bdtrc": sc.bdtrc,

@@ -499,7 +499,7 @@ class Workspace:
         s = self.state
         compiled = self.compiled()
         grid, notes, auto_used = self._grid_for(s, compiled)
-        c = plan.estimate(compiled, grid)
+        c = plan.estimate(compiled, grid, precise=True)
         ahead = []
         g = grid
         if not all(a.discrete for a in grid.axes) and c.points < 10**12:
