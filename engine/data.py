@@ -12,6 +12,7 @@ import hashlib
 import io
 import math
 import os
+import re
 import stat
 from dataclasses import dataclass, field, replace
 
@@ -148,6 +149,11 @@ def check_value(v: float, where: str) -> float:
     return v
 
 
+#: A decimal number as written in data files: ASCII digits, an optional sign,
+#: point and exponent (Python's float() would also take "1_000" and non-ASCII digits).
+_NUMBER = re.compile(r"[+-]?([0-9]+\.?[0-9]*|\.[0-9]+)([eE][+-]?[0-9]+)?")
+
+
 def parse_number(text: str, where: str) -> float:
     """One cell or typed value to a float, with an error naming `where`."""
     t = text.strip()
@@ -157,6 +163,8 @@ def parse_number(text: str, where: str) -> float:
     if low in ("nan", "inf", "infinity"):
         raise DataError(f"{where}: `{t}` is not a finite number")
     try:
+        if not _NUMBER.fullmatch(t):
+            raise ValueError
         v = float(t)
     except ValueError:
         shown = t if len(t) <= 30 else t[:27] + "..."

@@ -451,24 +451,47 @@ class TruncationTerm:
         f = fam.get(self.family)
         argv = [a(theta) for a in self.args]
         with np.errstate(all="ignore"):
-            mass = _domain_mass(f, argv, self.lo, self.hi, self.values)
-            return -np.log(mass)
+            if self.values is not None:
+                return -np.log(_domain_mass(f, argv, self.lo, self.hi, self.values))
+            return -_log_interval_mass(f, argv, self.lo, self.hi)
 
 
 def _domain_mass(f: fam.Family, argv, lo: float, hi: float, values) -> np.ndarray:
-    dist = f.scipy(*argv)
     if values is not None:
+        dist = f.scipy(*argv)
         vals = np.asarray(values, float)
         shape = np.broadcast(*[np.asarray(a) for a in argv]).shape if argv else ()
         total = np.zeros(shape)
         for v in vals:
             total = total + (dist.pmf(v) if f.discrete else dist.pdf(v))
         return total
-    if f.discrete:
-        return dist.cdf(hi) - dist.cdf(lo - 1) if math.isfinite(lo) else dist.cdf(hi)
-    upper = dist.cdf(hi) if math.isfinite(hi) else 1.0
-    lower = dist.cdf(lo) if math.isfinite(lo) else 0.0
-    return upper - lower
+    with np.errstate(all="ignore"):
+        return np.exp(_log_interval_mass(f, argv, lo, hi))
+
+
+def _log_interval_mass(f: fam.Family, argv, lo: float, hi: float) -> np.ndarray:
+    """``log P(lo <= X <= hi)`` under family `f` with arguments `argv`.
+
+    A difference of cdfs is 1 - 1 = 0 when the interval lies in the upper tail
+    (a prior centred far below a bounded domain); there the difference of
+    survival functions keeps its digits, and both are taken in log space."""
+    dist = f.scipy(*argv)
+    if f.discrete and math.isfinite(lo):
+        lo = lo - 1   # P(X <= hi) - P(X <= lo - 1)
+    shape = np.broadcast(*[np.asarray(a) for a in argv]).shape if argv else ()
+
+    def log_diff(a, b):
+        # log(exp(a) - exp(b)) for a >= b
+        a, b = np.broadcast_to(a, shape), np.broadcast_to(b, shape)
+        out = a + np.log1p(-np.exp(b - a))
+        return np.where(np.isneginf(a), -np.inf, out)
+
+    lower = log_diff(dist.logcdf(hi) if math.isfinite(hi) else 0.0,
+                     dist.logcdf(lo) if math.isfinite(lo) else -np.inf)
+    upper = log_diff(dist.logsf(lo) if math.isfinite(lo) else 0.0,
+                     dist.logsf(hi) if math.isfinite(hi) else -np.inf)
+    in_upper_tail = (dist.cdf(lo) > 0.5) if math.isfinite(lo) else np.zeros(shape, bool)
+    return np.where(in_upper_tail, upper, lower)
 
 
 Term = ParamTerm | RowTerm | ReducedTerm | TruncationTerm
