@@ -318,6 +318,7 @@ class Diagnostics:
     zero_points: int
     edge_mass: dict[str, tuple[float, float]]
     min_points_per_sd: float
+    missing: float = 0.0   # estimated posterior mass beyond the grid, all ends together
 
 
 @dataclass(frozen=True)
@@ -384,7 +385,32 @@ class Posterior:
     def _levels_of(self, name: str) -> list[Marginal]:
         return [self.marginals[name]] + [c[name] for c in self.coarse_marginals]
 
-    def _estimate(self, name: str, f: Callable[[Marginal], float]) -> Estimate:
+    def _estimate(self, name: str, f: Callable[[Marginal], float], *,
+                  truncation: float = 0.0) -> Estimate:
+        est = self._levels_estimate(name, f)
+        if est.error is not None and truncation > 0:
+            est = replace(est, error=est.error + truncation)
+        return est
+
+    def _span(self, name: str) -> float:
+        a = self.grid.axis(name)
+        return 0.0 if a.discrete else (a.hi - a.lo) * self.diagnostics.missing
+
+    def _quantile_truncation(self, name: str, q: float) -> float:
+        """How far a quantile moves if the mass beyond the grid were added: the
+        missing mass times dq/dp there."""
+        miss = self.diagnostics.missing
+        m = self.marginals[name]
+        if miss <= 0 or m.discrete:
+            return 0.0
+        eps = min(1e-4, q / 2, (1 - q) / 2)
+        try:
+            slope = (m.quantile(q + eps) - m.quantile(q - eps)) / (2 * eps)
+        except (ComputeError, ValueError):
+            return 0.0
+        return abs(slope) * miss
+
+    def _levels_estimate(self, name: str, f: Callable[[Marginal], float]) -> Estimate:
         ms = self._levels_of(name)
         vals = [f(ms[0])]  # the fine grid's answer: its errors are the user's to see
         for m in ms[1:]:
@@ -401,13 +427,14 @@ class Posterior:
         return combine(vals[0], v1, v2, order=ax.order or 2, exact=exact)
 
     def param_mean(self, name: str) -> Estimate:
-        return self._estimate(name, lambda m: m.mean)
+        return self._estimate(name, lambda m: m.mean, truncation=self._span(name))
 
     def param_sd(self, name: str) -> Estimate:
-        return self._estimate(name, lambda m: m.sd)
+        return self._estimate(name, lambda m: m.sd, truncation=self._span(name))
 
     def quantile(self, name: str, q: float) -> Estimate:
-        return self._estimate(name, lambda m: m.quantile(q))
+        return self._estimate(name, lambda m: m.quantile(q),
+                              truncation=self._quantile_truncation(name, q))
 
     def interval(self, name: str, level: float = 0.95, kind: str = "central") -> Interval:
         """Central or HPD interval of parameter `name`."""
@@ -416,12 +443,18 @@ class Posterior:
         if kind not in ("central", "hpd"):
             raise ComputeError(f"interval kind must be `central` or `hpd`; got `{kind}`")
         if kind == "central":
-            lo = self._estimate(name, lambda m: m.central(level)[0])
-            hi = self._estimate(name, lambda m: m.central(level)[1])
+            a = (1 - level) / 2
+            lo = self._estimate(name, lambda m: m.central(level)[0],
+                                truncation=self._quantile_truncation(name, a))
+            hi = self._estimate(name, lambda m: m.central(level)[1],
+                                truncation=self._quantile_truncation(name, 1 - a))
             return Interval(lo, hi, level, kind, ((lo.value, hi.value),))
         pieces = self.marginal(name).hpd(level)
-        lo = self._estimate(name, lambda m: m.hpd(level)[0][0])
-        hi = self._estimate(name, lambda m: m.hpd(level)[-1][1])
+        m0 = self.marginal(name)
+        lo = self._estimate(name, lambda m: m.hpd(level)[0][0],
+                            truncation=self._quantile_truncation(name, m0.cdf(pieces[0][0])))
+        hi = self._estimate(name, lambda m: m.hpd(level)[-1][1],
+                            truncation=self._quantile_truncation(name, m0.cdf(pieces[-1][1])))
         return Interval(Estimate(pieces[0][0], lo.error, lo.method),
                         Estimate(pieces[-1][1], hi.error, hi.method), level, kind, pieces)
 
@@ -720,16 +753,26 @@ def _finish(compiled, grid, acc, levels, pairs, best_flat, best_lp, zero, logp_a
                          lm[2] if len(lm) > 2 else None, order=order, exact=exact)
     edge = {}
     per_sd = math.inf
+    missing = 0.0
     for k, a in enumerate(grid.axes):
         if a.discrete:
             continue
         m = marg[a.name]
         edge[a.name] = _edge_masses(m)
+        at_lo = a.scale == "linear" and a.lo <= a.dom_lo
+        at_hi = a.scale == "linear" and a.hi >= a.dom_hi
+        if not at_lo:
+            missing += max(edge[a.name][0] - float(m.mass[0]), 0.0)
+        if not at_hi:
+            missing += max(edge[a.name][1] - float(m.mass[-1]), 0.0)
         sd = m.sd
         if sd > 0 and a.n > 1:
             h = np.median(a.spacing())
             per_sd = min(per_sd, sd / h if h > 0 else math.inf)
-    diag = Diagnostics(zero, edge, per_sd)
+    diag = Diagnostics(zero, edge, per_sd, min(missing, 1.0))
+    if log_ev is not None and log_ev.error is not None:
+        # the mass beyond the grid is missing from the evidence too
+        log_ev = replace(log_ev, error=log_ev.error + missing)
     return Posterior(grid, compiled, log_mass, log_ev, marg, tuple(coarse), moments[0][0],
                      moments[0][1], tuple(moments[1:len(coarse) + 1]), dict(acc.pairs),
                      grid.point(best_flat), best_lp, diag, seconds, logp_all, prior_norm)

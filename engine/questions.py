@@ -23,6 +23,7 @@ from scipy import optimize
 
 from .errors import ComputeError, ModelError
 from .model import ParamFunction, expand_lets, param_function
+from . import regions
 from .posterior import BLOCK, Estimate, Posterior, _block_theta, combine, evaluate_block
 
 
@@ -65,6 +66,13 @@ def _compile(post: Posterior, expr: sp.Basic) -> tuple[sp.Basic, ParamFunction]:
     return e, param_function(e, post.compiled.params)
 
 
+def _truncated(est: Estimate, term: float) -> Estimate:
+    """`est` with `term` (the effect of the mass beyond the grid) added to its error."""
+    if est.error is None or not term > 0:
+        return est
+    return Estimate(est.value, est.error + term, est.method)
+
+
 def _levels_estimate(post: Posterior, vals: Sequence[float], *,
                      smooth: bool = True) -> Estimate:
     """Combine the values of the fine and coarse levels into an `Estimate`.
@@ -101,9 +109,12 @@ def moments(post: Posterior, expr: sp.Expr) -> Moments:
     s1 = np.zeros(L)
     s2 = np.zeros(L)
     shift = None
+    vmin, vmax = math.inf, -math.inf
     for idx, theta, ws in walk(post):
         v = fn(theta)
         live = ws[0] > 0
+        if live.any():
+            vmin, vmax = min(vmin, float(np.min(v[live]))), max(vmax, float(np.max(v[live])))
         if np.any(~np.isfinite(v[live])):
             k = int(np.flatnonzero(live & ~np.isfinite(v))[0])
             where = ", ".join(f"{a.name} = {t[k]:.6g}" for a, t in zip(post.grid.axes, theta))
@@ -116,9 +127,19 @@ def moments(post: Posterior, expr: sp.Expr) -> Moments:
             s0[k] += w.sum()
             s1[k] += np.dot(w, d)
             s2[k] += np.dot(w, d * d)
-    means = [float(shift + s1[k] / s0[k]) for k in range(L)]
-    sds = [float(math.sqrt(max(s2[k] / s0[k] - (s1[k] / s0[k]) ** 2, 0.0))) for k in range(L)]
-    return Moments(_levels_estimate(post, means), _levels_estimate(post, sds))
+    with np.errstate(all="ignore"):
+        means = [float(shift + s1[k] / s0[k]) for k in range(L)]
+        var = [float(s2[k] / s0[k] - (s1[k] / s0[k]) ** 2) for k in range(L)]
+    if not (math.isfinite(means[0]) and math.isfinite(var[0])):
+        # finite values whose sums or squares overflow float64: no trustworthy answer
+        raise ComputeError("the mean or sd of the expression overflows (beyond 1e308 in "
+                           "double precision); ask about a smaller quantity, such as its log")
+    means = [m if math.isfinite(m) else None for m in means]
+    sds = [math.sqrt(max(v, 0.0)) if math.isfinite(v) else None for v in var]
+    # the mass beyond the grid could sit anywhere in the expression's range
+    span = (vmax - vmin) * post.diagnostics.missing if vmax > vmin else 0.0
+    return Moments(_truncated(_levels_estimate(post, means), span),
+                   _truncated(_levels_estimate(post, sds), span))
 
 
 # ---------------------------------------------------------------------------
@@ -179,23 +200,40 @@ def _relations(cond: sp.Basic, post: Posterior):
 
 
 def _fraction(rel: _Rel, theta, half: list[np.ndarray]) -> np.ndarray:
-    s = rel.s(theta)
-    delta = np.zeros_like(s)
-    for g, h in zip(rel.grads, half):
-        if g is not None:
-            delta += np.abs(g(theta)) * h
+    """The fraction of each node's box where the relation holds; NaN where its
+    sides are not numbers (the caller reports that, never drops it)."""
+    n = len(theta[0]) if theta else 1
     with np.errstate(all="ignore"):
+        s = np.broadcast_to(np.asarray(rel.s(theta), float), (n,))
+        delta = np.zeros(n)
+        for g, h in zip(rel.grads, half):
+            if g is not None:
+                delta = delta + np.abs(np.asarray(g(theta), float)) * h
         # fraction of the node's box where s > 0, s linear over the box
         ramp = np.clip((s + delta) / (2 * delta), 0.0, 1.0)
     hard_gt = (s > 0).astype(float)
     hard_ge = (s >= 0).astype(float)
-    smooth = delta > 0
+    # an infinite side or slope is judged at the node itself
+    smooth = (delta > 0) & np.isfinite(delta) & np.isfinite(s)
     if rel.op in ("gt", "ge"):
-        return np.where(smooth, ramp, hard_gt if rel.op == "gt" else hard_ge)
-    if rel.op in ("lt", "le"):
-        return np.where(smooth, 1.0 - ramp, 1.0 - (hard_ge if rel.op == "lt" else hard_gt))
-    eq = (s == 0).astype(float)
-    return eq if rel.op == "eq" else 1.0 - eq
+        out = np.where(smooth, ramp, hard_gt if rel.op == "gt" else hard_ge)
+    elif rel.op in ("lt", "le"):
+        out = np.where(smooth, 1.0 - ramp, 1.0 - (hard_ge if rel.op == "lt" else hard_gt))
+    else:
+        eq = (s == 0).astype(float)
+        out = eq if rel.op == "eq" else 1.0 - eq
+    return np.where(np.isnan(s), np.nan, out)
+
+
+def _undefined(post: Posterior, theta, ind: np.ndarray, w: np.ndarray) -> None:
+    """Refuse a condition that is not a number where the posterior has mass."""
+    bad = np.isnan(ind) & (w > 0)
+    if bad.any():
+        k = int(np.flatnonzero(bad)[0])
+        where = ", ".join(f"{a.name} = {t[k]:.6g}" for a, t in zip(post.grid.axes, theta))
+        raise ComputeError(f"the condition cannot be judged at {where}, where the posterior "
+                           "is not zero: a side of it is not a number there (log or sqrt of "
+                           "a negative number, 0/0, ...)")
 
 
 def _judge(tree, fr: list[np.ndarray], n: int) -> np.ndarray:
@@ -286,7 +324,13 @@ def probability(post: Posterior, cond: sp.Basic) -> Estimate:
         for m in post._levels_of(name):
             vals.append(sum((1.0 if b == math.inf else m.cdf(b)) -
                             (0.0 if a == -math.inf else m.cdf(a)) for a, b in pieces))
-        return _levels_estimate(post, vals)
+        return _truncated(_levels_estimate(post, vals), post.diagnostics.missing)
+    lines = regions.region_probability(post, e)
+    if lines is not None:
+        # high order, but not a clean power series (the cut moves across the cells as
+        # the grid coarsens): the difference with the first coarse level is the error
+        return _truncated(_levels_estimate(post, lines, smooth=False),
+                          post.diagnostics.missing)
     tree, rels = _relations(e, post)
     L = post.levels + 1
     tot = np.zeros(L)
@@ -299,10 +343,11 @@ def probability(post: Posterior, cond: sp.Basic) -> Estimate:
             half = [h[i] for h, i in zip(halves[lev], idx)]
             fr = [_fraction(r, theta, half) for r in rels]
             ind = _judge(tree, fr, len(theta[0]))
-            tot[lev] += np.dot(ws[lev], ind)
+            _undefined(post, theta, ind, ws[lev])
+            tot[lev] += np.dot(ws[lev], np.nan_to_num(ind))
             norm[lev] += ws[lev].sum()
     vals = [float(np.clip(tot[k] / norm[k], 0.0, 1.0)) for k in range(L)]
-    return _levels_estimate(post, vals, smooth=False)
+    return _truncated(_levels_estimate(post, vals, smooth=False), post.diagnostics.missing)
 
 
 # ---------------------------------------------------------------------------
@@ -315,11 +360,40 @@ def quantile(post: Posterior, expr: sp.Expr, q: float) -> Estimate:
     e, fn = _compile(post, expr)
     if isinstance(e, sp.Symbol):
         return post.quantile(e.name, q)
+    if e.is_number:
+        # a constant (perhaps after simplification, as p / p): its own quantiles
+        value = complex(e)
+        if value.imag != 0 or not math.isfinite(value.real):
+            raise ComputeError(f"the expression is `{e}`, not a finite real number")
+        return Estimate(value.real, 0.0, "exact")
+    mono = _monotone_in_one(post, e)
+    if mono is not None:
+        # a strictly monotone function of one parameter: its quantile is the function
+        # of the parameter's quantile (q, or 1 - q where it decreases)
+        name, g, rising = mono
+        est = post.quantile(name, q if rising else 1 - q)
+
+        def at(v):
+            return float(g([np.array([v]) if p.name == name else np.array([0.0])
+                            for p in post.compiled.params])[0])
+
+        value = at(est.value)
+        err = None
+        if est.error is not None:
+            step = max(abs(est.value) * 1e-7, 1e-12)
+            err = abs(at(est.value + step) - at(est.value - step)) / (2 * step) * est.error
+        return Estimate(value, err, est.method)
     # a first guess from the weighted values, then solve P(expr <= x) = q
     vals, wts = [], []
     for idx, theta, ws in walk(post):
-        v = fn(theta)
+        with np.errstate(all="ignore"):
+            v = np.broadcast_to(np.asarray(fn(theta), float), ws[0].shape)
         keep = ws[0] > 0
+        if np.any(~np.isfinite(v[keep])):
+            k = int(np.flatnonzero(keep & ~np.isfinite(v))[0])
+            where = ", ".join(f"{a.name} = {t[k]:.6g}" for a, t in zip(post.grid.axes, theta))
+            raise ComputeError(f"the expression is not a finite number at {where}, where the "
+                               "posterior is not zero")
         vals.append(v[keep])
         wts.append(ws[0][keep])
     v = np.concatenate(vals)
@@ -335,8 +409,13 @@ def quantile(post: Posterior, expr: sp.Expr, q: float) -> Estimate:
         x = float(v[order[min(int(np.searchsorted(c, q - 1e-12)), len(v) - 1)]])
         return Estimate(x, 0.0, "exact")
     out = []
+    cdf = regions.region_cdf(post, e)
     for lev in range(post.levels + 1):
         def f(x, lev=lev):
+            if cdf is not None:
+                v = cdf(x, lev)
+                if v is not None:
+                    return v - q
             return _prob_le(post, e, x, lev) - q
         lo, hi = a, b
         span = max(abs(hi - lo), 1e-12 * max(1.0, abs(lo)))
@@ -358,7 +437,41 @@ def quantile(post: Posterior, expr: sp.Expr, q: float) -> Estimate:
             out.append(None)
     if out[0] is None:
         raise ComputeError("could not solve for the quantile")
-    return _levels_estimate(post, out, smooth=False)
+    est = _levels_estimate(post, out, smooth=False)
+    miss = post.diagnostics.missing
+    if miss > 0 and cdf is not None:
+        # how far the quantile moves if the mass beyond the grid were added
+        x0 = out[0]
+        dx = 1e-5 * max(abs(x0), abs(b - a), 1e-300)
+        p_hi, p_lo = cdf(x0 + dx, 0), cdf(x0 - dx, 0)
+        if p_hi is not None and p_lo is not None and p_hi > p_lo:
+            est = _truncated(est, miss * 2 * dx / (p_hi - p_lo))
+    return est
+
+
+def _monotone_in_one(post: Posterior, e: sp.Expr):
+    """(name, compiled e, rising) when `e` reads one continuous parameter and is
+    strictly monotone over its grid axis (checked on a mesh four times finer than
+    the nodes), else None."""
+    params = post.compiled.params
+    used = [p for p in params if p.symbol in e.free_symbols]
+    if len(used) != 1 or used[0].discrete:
+        return None
+    p = used[0]
+    ax = post.grid.axis(p.name)
+    fn = param_function(e, params)
+    u = np.linspace(ax.u[0], ax.u[-1], 4 * ax.n + 1)
+    vals = ax.to_value(u)
+    theta = [vals if q.name == p.name else np.zeros_like(vals) for q in params]
+    g = fn(theta)
+    if not np.all(np.isfinite(g)):
+        return None
+    d = np.diff(g)
+    if np.all(d > 0):
+        return p.name, fn, True
+    if np.all(d < 0):
+        return p.name, fn, False
+    return None
 
 
 def _prob_le(post: Posterior, e: sp.Expr, x: float, lev: int) -> float:
@@ -367,8 +480,9 @@ def _prob_le(post: Posterior, e: sp.Expr, x: float, lev: int) -> float:
     tot = norm = 0.0
     for idx, theta, ws in walk(post):
         half = [h[i] for h, i in zip(half_axes, idx)]
-        ind = _fraction(rels[0], theta, half)
-        tot += float(np.dot(ws[lev], ind))
+        ind = _judge(tree, [_fraction(r, theta, half) for r in rels], len(theta[0]))
+        _undefined(post, theta, ind, ws[lev])
+        tot += float(np.dot(ws[lev], np.nan_to_num(ind)))
         norm += float(ws[lev].sum())
     return tot / norm
 

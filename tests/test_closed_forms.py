@@ -345,17 +345,9 @@ def test_nig_sd_of_the_data(nig):
 
 # A condition on one parameter (any and / or / not of comparisons with numbers)
 # is answered from that parameter's marginal cdf. Conditions on more than one
-# parameter, and quantiles of derived quantities, go through the cell-fraction
-# method of engine.questions, which is of second order in the spacing: at this
-# grid (grid auto, 201 x 201) their errors are 2e-5 to 3e-4. Those checks hold
-# the engine to the error it states (the reference must lie within the
-# estimate's error, up to 1e-8), and to the 1e-6 as known failures
-# (strict: they fail loudly once the engine meets them).
-
-SECOND_ORDER = pytest.mark.xfail(
-    strict=True, reason="cell-fraction answers are second order in the spacing: "
-                        "errors 2e-5 to 3e-4 at grid auto")
-
+# parameter, and quantiles of derived quantities, are integrated along grid lines
+# with the boundary solved for exactly (engine.regions). Both hold to the issue's
+# 1e-6, and the reference must lie within the stated error (up to 1e-8).
 
 def _nig_joint_refs():
     mn, kn, an, bn = _nig_ref()
@@ -404,8 +396,7 @@ def test_nig_probability_within_its_stated_error(nig_answers, text):
     assert abs(est.value - ref) <= est.error + 1e-8, (est, ref)
 
 
-@pytest.mark.parametrize("text", [JOINT[0]] + [pytest.param(t, marks=SECOND_ORDER)
-                                               for t in JOINT[1:]])
+@pytest.mark.parametrize("text", JOINT)
 def test_nig_probability_to_1e6(nig_answers, text):
     ref = _nig_joint_refs()[text]
     est = nig_answers[text]
@@ -424,7 +415,6 @@ def test_quantile_of_a_derived_quantity_within_its_stated_error(nig_answers, q):
     assert abs(est.value - _sqrt_v_quantile(q)) <= est.error + 1e-8, (est, _sqrt_v_quantile(q))
 
 
-@SECOND_ORDER
 @pytest.mark.parametrize("q", QS)
 def test_quantile_of_a_derived_quantity_to_1e6(nig_answers, q):
     est = nig_answers[q]
