@@ -15,6 +15,7 @@ import keyword
 import math
 import re
 import sys
+import warnings
 from dataclasses import dataclass
 from typing import Callable, Mapping
 
@@ -30,6 +31,8 @@ MAX_DEPTH = 100
 #: Magnitude beyond which a folded constant is refused (float64 range).
 MAX_CONSTANT = 1e308
 _NAME = re.compile(r"^[A-Za-z][A-Za-z0-9_]*$")
+#: Number literals that Python reads but a formula does not: 0x10, 0o7, 0b1, 1_000.
+_NOT_DECIMAL = re.compile(r"^(0[xXoObB]|.*\d_)")
 
 
 @dataclass(frozen=True)
@@ -238,6 +241,9 @@ class _Builder:
 
     # -- numbers ---------------------------------------------------------
     def number(self, value, node) -> sp.Expr:
+        if _NOT_DECIMAL.match(self.segment(node)):
+            self.fail(f"write the number `{self.segment(node)}` in decimal digits "
+                      "(no 0x, 0o, 0b or _)", node)
         if isinstance(value, bool) or not isinstance(value, (int, float)):
             if isinstance(value, str):
                 self.fail("text in quotes is not allowed in a formula", node)
@@ -268,9 +274,13 @@ class _Builder:
                 self.fail(f"`{self.segment(node)}` divides by zero", node)
             if b < 0 and not float(e).is_integer():
                 self.fail(f"`{self.segment(node)}` is a negative number to a fractional power", node)
-            if b != 0 and abs(e) * math.log10(abs(b)) > 308:
-                self.fail(f"`{self.segment(node)}` overflows (about 10^{abs(e) * math.log10(abs(b)):.3g})",
-                          node)
+            # the size of the result, 10^r, before any exact arithmetic is tried
+            r = e * math.log10(abs(b)) if b != 0 else -math.inf
+            if r > 308:
+                self.fail(f"`{self.segment(node)}` overflows (about 10^{r:.3g})", node)
+            if r < -300:
+                # far below double precision: it rounds to zero, as a typed 1e-400 does
+                return sp.Float(b**e)
             if base.is_Integer and exp.is_Integer and int(exp) >= 0:
                 return sp.Integer(int(base) ** int(exp))
             if base.is_Rational and exp.is_Integer:
@@ -445,6 +455,23 @@ class _Builder:
         return sp.And(*values) if isinstance(node.op, ast.And) else sp.Or(*values)
 
 
+def _parse(src: str) -> ast.Expression:
+    # the parser's own warnings (`1if`, `1 is 1`) would print to standard error
+    # beside quadrat's one error line; the builder judges those formulas itself
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        return ast.parse(src, mode="eval")
+
+
+def _syntax_message(exc: SyntaxError) -> str:
+    msg = (exc.msg or "cannot read the formula").split("(")[0].strip()
+    if msg.startswith("invalid syntax"):
+        return "cannot read the formula here"
+    if msg.startswith("leading zeros"):
+        return "a number cannot start with 0 (write 7, not 07)"
+    return msg
+
+
 def parse(text: str, names: Mapping[str, sp.Expr], *, condition: bool = False) -> sp.Basic:
     """Build the sympy expression of formula `text`.
 
@@ -475,15 +502,12 @@ def parse(text: str, names: Mapping[str, sp.Expr], *, condition: bool = False) -
         # a long flat sum is a deep tree for the parser; the text is bounded by
         # MAX_LENGTH, so this bounded lift of the limit is safe
         sys.setrecursionlimit(max(limit, 4 * MAX_LENGTH))
-        tree = ast.parse(src.lstrip(), mode="eval")
+        tree = _parse(src.lstrip())
     except SyntaxError as exc:
         shift = len(src) - len(src.lstrip())
         off = (exc.offset or 1) - 1 + shift
         col = where[min(max(off, 0), len(where) - 1)] + 1
-        msg = (exc.msg or "cannot read the formula").split("(")[0].strip()
-        if msg.startswith("invalid syntax"):
-            msg = "cannot read the formula here"
-        raise FormulaError(msg, col) from None
+        raise FormulaError(_syntax_message(exc), col) from None
     except (RecursionError, MemoryError, ValueError):
         raise FormulaError("formula is too complex to read") from None
     finally:
@@ -528,7 +552,7 @@ def parse_call(text: str, names: Mapping[str, sp.Expr], known: Mapping[str, obje
     limit = sys.getrecursionlimit()
     try:
         sys.setrecursionlimit(max(limit, 4 * MAX_LENGTH))
-        tree = ast.parse(stripped, mode="eval")
+        tree = _parse(stripped)
     except SyntaxError as exc:
         off = (exc.offset or 1) - 1 + shift
         col = where[min(max(off, 0), len(where) - 1)] + 1

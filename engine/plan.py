@@ -20,6 +20,11 @@ from .posterior import BLOCK, STORE_LIMIT, evaluate_block
 
 #: Bytes of working memory per grid point of a block (theta, weights, indices...).
 BYTES_PER_BLOCK_POINT = 8 * 24
+#: Bytes an axis holds per node (nodes, values, weights, Jacobian, log weights and the
+#: log weights of two nested levels), besides the marginal sums of a pass.
+BYTES_PER_AXIS_NODE = 8 * 7
+#: Share of the memory quadrat may use that one computation may take.
+MEMORY_SHARE = 0.8
 
 
 @dataclass(frozen=True)
@@ -48,14 +53,36 @@ class Cost:
 
     @property
     def fits(self) -> bool:
-        return self.memory < 0.8 * self.machine_memory
+        return self.memory < MEMORY_SHARE * self.machine_memory
 
 
 def machine_memory() -> int:
+    """The memory this process may use, in bytes: the machine's physical memory,
+    or less where a limit applies (a container's cgroup limit, `ulimit -v` or
+    `ulimit -d`), as on shared servers. Going past it gets the process killed,
+    and the session with it, so grids are sized against it."""
     try:
-        return int(os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_PHYS_PAGES"))
+        total = int(os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_PHYS_PAGES"))
     except (ValueError, OSError, AttributeError):
-        return 8 << 30
+        total = 8 << 30
+    limits = [total]
+    try:
+        import resource
+        for which in (resource.RLIMIT_AS, resource.RLIMIT_DATA):
+            soft = resource.getrlimit(which)[0]
+            if soft != resource.RLIM_INFINITY and soft > 0:
+                limits.append(int(soft))
+    except (ImportError, ValueError, OSError):
+        pass
+    for path in ("/sys/fs/cgroup/memory.max", "/sys/fs/cgroup/memory/memory.limit_in_bytes"):
+        try:
+            with open(path, encoding="ascii") as fh:
+                text = fh.read().strip()
+        except OSError:
+            continue
+        if text.isdigit() and 0 < int(text) < total:
+            limits.append(int(text))
+    return min(limits)
 
 
 def memory_for(grid_points: int, axis_lengths: list[int], pairs: int = 0, *,
@@ -65,7 +92,7 @@ def memory_for(grid_points: int, axis_lengths: list[int], pairs: int = 0, *,
         store = grid_points <= STORE_LIMIT
     b = min(block, grid_points)
     mem = b * (BYTES_PER_BLOCK_POINT + 8 * len(axis_lengths))
-    mem += 8 * (levels + 1) * sum(axis_lengths)
+    mem += (BYTES_PER_AXIS_NODE + 8 * (levels + 1)) * sum(axis_lengths)
     if store:
         mem += 8 * grid_points
     if pairs:
@@ -174,6 +201,41 @@ def estimate(compiled: Compiled, grid: Grid, *, pairs: int = 0, precise: bool = 
         fixed, spp = timing(compiled, grid)
     mem = memory_for(points, [a.n for a in grid.axes], pairs, levels=grid.levels)
     return Cost(points, mem, fixed + spp * points, spp, machine_memory())
+
+
+def check_memory(axis_lengths: list[int], *, pair: tuple[str, str] | None = None) -> None:
+    """Refuse, before anything is allocated, a grid (axes of these lengths) whose
+    pass would not fit in the memory this process may use, or, with `pair`, the
+    2-D marginal of two axes of these lengths. The message gives the figures.
+
+    Raises
+    ------
+    GridError
+    """
+    from .errors import GridError
+
+    have = machine_memory()
+    points = math.prod(axis_lengths)
+    if pair is not None:
+        need = 8 * points
+        what = (f"the joint of `{pair[0]}` and `{pair[1]}` ({format_count(axis_lengths[0])} x "
+                f"{format_count(axis_lengths[1])} = {format_count(points)} cells)")
+    else:
+        need = memory_for(points, list(axis_lengths))
+        axes = " x ".join(format_count(n) for n in axis_lengths)
+        what = f"this grid ({format_count(points)} points on axes of {axes})"
+    if need >= MEMORY_SHARE * have:
+        raise GridError(f"{what} needs about {format_bytes(need)} of memory; quadrat may use "
+                        f"{format_bytes(have)} here: use fewer points")
+
+
+def format_bytes(n: float) -> str:
+    """A number of bytes as people read it: 1.5 GiB."""
+    for unit in ("bytes", "KiB", "MiB", "GiB", "TiB", "PiB"):
+        if abs(n) < 1024 or unit == "PiB":
+            return f"{n:,.0f} {unit}" if unit == "bytes" else f"{n:,.1f} {unit}"
+        n /= 1024
+    return f"{n:,.1f} PiB"
 
 
 def format_count(n: int) -> str:

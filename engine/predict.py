@@ -91,7 +91,18 @@ class Predictive:
             if i < len(self.values):
                 return float(self.values[i])
             return float(self.values[-1])
-        lo, hi = float(self.values[0]), float(self.values[-1])
+        if len(self.values):
+            lo, hi = float(self.values[0]), float(self.values[-1])
+        else:
+            # no plotting mesh yet: the mixture's q-quantile lies between the
+            # q-quantiles of its components
+            with np.errstate(all="ignore"):
+                qs = np.asarray(self.dist().ppf(q), float)
+            qs = qs[np.isfinite(qs)]
+            lo, hi = (float(qs.min()), float(qs.max())) if qs.size else (-1.0, 1.0)
+        if not hi > lo:
+            pad = 1e-6 * max(1.0, abs(lo))
+            lo, hi = lo - pad, hi + pad
         span = hi - lo
         while self.cdf(lo) > q:
             lo -= span

@@ -104,6 +104,12 @@ def moments(post: Posterior, expr: sp.Expr) -> Moments:
     e, fn = _compile(post, expr)
     if isinstance(e, sp.Symbol):
         return Moments(post.param_mean(e.name), post.param_sd(e.name))
+    if e.is_number:
+        # a constant (perhaps after simplification): its own mean, and sd 0
+        value = complex(e)
+        if value.imag != 0 or not math.isfinite(value.real):
+            raise ComputeError(f"the expression is `{e}`, not a finite real number")
+        return Moments(Estimate(value.real, 0.0, "exact"), Estimate(0.0, 0.0, "exact"))
     L = post.levels + 1
     s0 = np.zeros(L)
     s1 = np.zeros(L)

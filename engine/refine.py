@@ -18,7 +18,7 @@ import scipy.special as sc
 from scipy import optimize
 
 from .errors import ComputeError, GridError
-from .grid import Axis, Grid, default_scale, make_axis
+from .grid import DEFAULT_POINTS, MAX_AXIS_POINTS, Axis, Grid, default_scale, make_axis
 from .model import Compiled, Param
 from .posterior import Posterior, compute, evaluate_block
 
@@ -509,14 +509,27 @@ def build_grid(params: Sequence[Param], specs: Sequence[AxisSpec], *, rule: str 
                ) -> Grid:
     """The grid of `specs` (one per parameter, in the model's order)."""
     by = {s.name: s for s in specs}
-    axes = []
+    counts = []
     for p in params:
         s = by.get(p.name)
         if s is None:
             raise GridError(f"no grid axis for `{p.name}`; use `grid {p.name} LO HI` or `grid auto`")
-        axes.append(make_axis(p, s.lo, s.hi, s.n, rule="trapezoid" if p.discrete else rule,
-                              scale=s.scale))
+        counts.append(axis_count(p, s))
+    # refuse a grid that would not fit before its axes are allocated
+    from .plan import check_memory
+    check_memory(counts)
+    axes = [make_axis(p, by[p.name].lo, by[p.name].hi, by[p.name].n,
+                      rule="trapezoid" if p.discrete else rule, scale=by[p.name].scale)
+            for p in params]
     return Grid(tuple(axes))
+
+
+def axis_count(p: Param, spec: AxisSpec) -> int:
+    """The number of nodes the axis of `spec` will have (without building it)."""
+    if p.discrete:
+        return max(1, sum(1 for v in p.values if spec.lo - 1e-12 <= v <= spec.hi + 1e-12))
+    n = spec.n or p.points or DEFAULT_POINTS
+    return int(n) if n == n and 1 <= n <= MAX_AXIS_POINTS else 1
 
 
 # ---------------------------------------------------------------------------

@@ -25,7 +25,8 @@ from .expr import check_name, parse, parse_call
 from .grid import Grid, make_axis
 from .model import Compiled, Let, Likelihood, Model, Prior, compile_model, make_param
 from .posterior import Estimate, Interval, Posterior, compute as compute_posterior
-from .refine import (AutoGrid, AxisSpec, RefineResult, RefineStep, auto_grid, build_grid,
+from .refine import (AutoGrid, AxisSpec, RefineResult, RefineStep, auto_grid, axis_count,
+                     build_grid,
                      refine as refine_posterior, refined_grid, zoom_specs)
 from .rules import RULES
 
@@ -553,7 +554,7 @@ class Workspace:
         if not c.fits:
             raise ComputeError(
                 f"this grid ({plan.format_count(c.points)} points) needs about "
-                f"{_bytes(c.memory)} of memory; the machine has {_bytes(c.machine_memory)}: "
+                f"{_bytes(c.memory)} of memory; quadrat may use {_bytes(c.machine_memory)} here: "
                 "use fewer points or `zoom`")
         if not force and c.seconds > self.budget_seconds:
             raise ComputeError(
@@ -645,6 +646,34 @@ class Workspace:
         rep = self.compute()
         return self.state.posterior, (f"{what}: computed first ({rep.points:,} points)",) + \
             rep.notes + rep.warnings
+
+    def joint(self, a: str, b: str) -> tuple[np.ndarray, Posterior, tuple[str, ...]]:
+        """The 2-D posterior marginal of parameters `a` and `b`: node masses, shape
+        ``(n_a, n_b)``, summing to 1; the posterior is computed first when stale
+        and cheap. One that would not fit in memory is refused with the figure
+        before anything is computed or allocated."""
+        s = self.state
+        pa, pb = s.model.param(a), s.model.param(b)
+        sa, sb = s.spec(a), s.spec(b)
+        if sa is not None and sb is not None:
+            plan.check_memory([axis_count(pa, sa), axis_count(pb, sb)], pair=(a, b))
+        post, notes = self.posterior()
+        i, j = post.grid.index(a), post.grid.index(b)
+        if (i, j) in post.pairs or (j, i) in post.pairs:
+            mass = post.pair(a, b)
+            return mass / mass.sum(), post, notes
+        na, nb = post.grid.axes[i].n, post.grid.axes[j].n
+        plan.check_memory([na, nb], pair=(a, b))
+        if post.logp is None and post.seconds > CHEAP_SECONDS:
+            raise ComputeError(
+                f"the joint of `{a}` and `{b}` was not kept by the pass over "
+                f"{plan.format_count(post.grid.size)} points, and another pass would take "
+                f"about {_duration(post.seconds)}: use fewer points")
+        mass = np.zeros(na * nb)
+        for idx, _theta, ws in questions.walk(post):
+            mass += np.bincount(idx[i] * nb + idx[j], weights=ws[0], minlength=na * nb)
+        mass = mass.reshape(na, nb)
+        return mass / mass.sum(), post, notes
 
     # -- questions ------------------------------------------------------------------
     def _summary(self) -> Summary:

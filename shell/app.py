@@ -24,7 +24,7 @@ from .paths import state_dir
 from .printer import Printer
 from .registry import COMMANDS, LATER
 from .replies import DataFile, Reply, Shown
-from .words import Line, Quit, ShellError
+from .words import Line, Quit, ShellError, check_characters
 
 #: How deep `replay` may nest (a file that replays another ...).
 MAX_REPLAY_DEPTH = 8
@@ -108,10 +108,12 @@ class App:
             return "blank"
         prefix = f"{where}: " if where else ""
         before = self.ws.state
+        layer_before = self.ws.in_whatif
         log_len = len(self.log)
         self.depth += 1
         outer_where, self.current_where = self.current_where, where
         try:
+            check_characters(line)
             cmd = self.lookup(line)
             reply = cmd.handler(self, line) or Reply()
         except Quit:
@@ -119,7 +121,7 @@ class App:
         except KeyboardInterrupt:
             if self.depth > 1:
                 raise
-            self.restore(before)
+            self.restore(before, layer_before)
             del self.log[log_len:]
             self.printer.error(f"{prefix}cancelled: the state is as it was before "
                                f"`{line.name}`")
@@ -127,22 +129,26 @@ class App:
         except QuadratError as exc:
             # the workspace changes nothing on an error; a question may have
             # recomputed before failing, and that goes too
-            self.restore(before)
+            self.restore(before, layer_before)
             self.printer.error(f"{prefix}error: {exc}")
             return "error"
         except (RecursionError, MemoryError) as exc:
-            self.restore(before)
+            self.restore(before, layer_before)
             what = "out of memory" if isinstance(exc, MemoryError) else "too deeply nested"
             self.printer.error(f"{prefix}error: `{line.name}` ran {what}; nothing was changed")
             return "error"
         except Exception as exc:  # noqa: BLE001 - the loop must go on
-            self.restore(before)
+            self.restore(before, layer_before)
             self.internal_error(exc, prefix)
             return "error"
         finally:
             self.depth -= 1
             self.current_where = outer_where
         if reply.status == "error":
+            # a command that ended in an error (a replay that stopped at one) keeps
+            # nothing: the state and the session log are as before it
+            self.restore(before, layer_before)
+            del self.log[log_len:]
             return "error"
         self.keep(cmd.kind, line, before, reply)
         if cmd.kind == "check" and reply.status == "ok":
@@ -158,9 +164,12 @@ class App:
             raise ShellError(f"`{name}` is not in this version of quadrat yet", 1 + line.start)
         raise ShellError(f"unknown command `{name}`; `help` lists the commands", 1 + line.start)
 
-    def restore(self, before: State) -> None:
-        """Put the workspace back to state `before` (popping the undo stack)."""
+    def restore(self, before: State, layer_before: bool | None = None) -> None:
+        """Put the workspace back to state `before` (popping the undo stack),
+        dropping a what-if layer opened since (when `layer_before` is false)."""
         ws = self.ws
+        if layer_before is False and ws.in_whatif:
+            ws.whatif_end()
         if ws.state is before:
             return
         if any(s is before for s in ws.undo_stack):
@@ -195,12 +204,13 @@ class App:
     def keep(self, kind: str, line: Line, before: State, reply: Reply) -> None:
         text = line.text
         if kind == "change":
-            self.log.append(Entry(text, kind, before, (), reply.data_file))
+            self.log.append(Entry(text, kind, before, reply.shown, reply.data_file))
         elif kind == "question":
             self.log.append(Entry(text, kind, before, reply.shown))
         elif kind == "check":
             last = self.log[-1] if self.log else None
-            if (reply.check_of is not None and last is not None and last.kind == "question"
+            if (reply.check_of is not None and last is not None
+                    and last.kind in ("question", "change")
                     and any(_same(s.question, reply.check_of) for s in last.shown)):
                 return  # the check of the question just asked: save writes it anew
             self.log.append(Entry(text, kind, before))
@@ -209,10 +219,25 @@ class App:
 
     def undo(self) -> Entry:
         """Undo the last kept change: the state goes back to before it, and the
-        change and everything asked after it leave the session log."""
+        change and everything asked after it leave the session log. Changes inside a
+        what-if layer that was dropped are passed over; inside an open layer only its
+        own changes can be undone."""
+        from .commands.arrivals import layer_word
+
+        closed = 0   # what-if layers passed over, walking back
         for i in range(len(self.log) - 1, -1, -1):
             e = self.log[i]
-            if e.kind != "change":
+            layer = layer_word(e.text) if e.kind == "note" else None
+            if layer == "end":
+                closed += 1
+                continue
+            if layer == "begin":
+                if closed:
+                    closed -= 1
+                    continue
+                raise ShellError("nothing to undo inside this what-if layer; `whatif end` "
+                                 "drops it")
+            if e.kind != "change" or closed:
                 continue
             ws = self.ws
             stack_ids = {id(s) for s in ws.undo_stack}

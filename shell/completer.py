@@ -32,11 +32,14 @@ class Names:
     params: tuple[str, ...] = ()
     columns: tuple[str, ...] = ()
     lets: tuple[str, ...] = ()
+    predicted: tuple[str, ...] = ()
+    kept: tuple[str, ...] = ()
 
     @classmethod
     def of(cls, ws) -> "Names":
         s = ws.state
-        return cls(s.model.param_names, s.data.names, tuple(lt.name for lt in s.model.lets))
+        return cls(s.model.param_names, s.data.names, tuple(lt.name for lt in s.model.lets),
+                   tuple(p.name for p in s.predictions), tuple(k.name for k in s.keeps))
 
 
 @dataclass(frozen=True)
@@ -106,8 +109,12 @@ def candidates(text: str, names: Names, *,
         out += _matches(names.params, ident, ni, "parameter")
     if slot.lets:
         out += _matches(names.lets, ident, ni, "let")
+    if slot.predicted:
+        out += _matches(names.predicted, ident, ni, "predicted")
     if slot.columns:
         out += _matches(names.columns, ident, ni, "column")
+    if slot.kept:
+        out += _matches(names.kept, ident, ni, "kept model")
     if slot.families:
         out += _matches(FAMILIES, ident, ni, "distribution")
     if slot.functions:

@@ -107,8 +107,10 @@ def _isatty(stream) -> bool:
 
 
 def _lines(stream):
-    for raw in stream:
-        yield raw.rstrip("\r\n")
+    for i, raw in enumerate(stream):
+        line = raw.rstrip("\r\n")
+        # a byte-order mark that an editor put at the start of the text
+        yield line.removeprefix("\ufeff") if i == 0 else line
 
 
 if __name__ == "__main__":  # pragma: no cover

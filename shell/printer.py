@@ -12,11 +12,26 @@ import os
 import shutil
 import sys
 import time
+import unicodedata
 from typing import Callable, TextIO
 
 _STYLES = {"error": "\x1b[31m", "warning": "\x1b[33m", "note": "\x1b[2m", "ok": "\x1b[32m",
            "bold": "\x1b[1m"}
 _RESET = "\x1b[0m"
+
+
+def hidden(ch: str) -> bool:
+    """A control or format character (escape sequences, bidi overrides, byte-order
+    marks): text from a file or a line must never carry one to the terminal."""
+    return ch != "\t" and unicodedata.category(ch) in ("Cc", "Cf", "Zl", "Zp")
+
+
+def visible(text: str) -> str:
+    """`text` with every hidden character written as an escape (``\\x1b``)."""
+    if not any(hidden(ch) for ch in text):
+        return text
+    return "".join(ch.encode("unicode_escape").decode("ascii") if hidden(ch) else ch
+                   for ch in text)
 
 
 def is_terminal(stream: TextIO) -> bool:
@@ -82,14 +97,16 @@ class Printer:
         for t in texts:
             self.line(t)
 
+    # notes, warnings and errors quote names, paths and cells from files: they are
+    # shown with any control character escaped, on one line
     def note(self, text: str) -> None:
-        self.line("note: " + text, "note")
+        self.line("note: " + visible(text), "note")
 
     def warning(self, text: str) -> None:
-        self.line("warning: " + text, "warning")
+        self.line("warning: " + visible(text), "warning")
 
     def error(self, text: str) -> None:
-        self.err.write(self._paint(text, "error") + "\n")
+        self.err.write(self._paint(visible(text), "error") + "\n")
         self.err.flush()
 
     def progress(self) -> "Progress":

@@ -20,6 +20,7 @@ GROUPS = (
     ("model", "declaring the model"),
     ("grid", "grids and computing"),
     ("question", "questions"),
+    ("arrival", "data arriving, what-if, prediction and comparing models"),
     ("view", "looking and exporting"),
     ("session", "sessions and housekeeping"),
 )
@@ -33,8 +34,9 @@ class Slot:
     ----------
     words : tuple of str
         Literal words (keywords of the command).
-    params, columns, lets, families, functions, commands : bool
-        Which kinds of names may come.
+    params, columns, lets, families, functions, commands, predicted, kept : bool
+        Which kinds of names may come (`predicted`: names given to `predict`;
+        `kept`: names given to `keep`).
     files : tuple of str or None
         File name endings expected there (``(".csv",)``); None: no file.
     """
@@ -46,11 +48,15 @@ class Slot:
     families: bool = False
     functions: bool = False
     commands: bool = False
+    predicted: bool = False
+    kept: bool = False
     files: tuple[str, ...] | None = None
 
     @classmethod
-    def formula(cls, *, families: bool = False, columns: bool = False) -> "Slot":
-        return cls(params=True, lets=True, functions=True, columns=columns, families=families)
+    def formula(cls, *, families: bool = False, columns: bool = False,
+                predicted: bool = False) -> "Slot":
+        return cls(params=True, lets=True, functions=True, columns=columns, families=families,
+                   predicted=predicted)
 
 
 NOTHING = Slot()
@@ -113,4 +119,4 @@ def command(name: str, *, usage: str, help: str, kind: str = "other", group: str
 
 
 #: Commands of the product's vocabulary that this version does not have yet.
-LATER = ("refine", "zoom", "predict", "keep", "compare", "whatif", "samplesize")
+LATER: tuple[str, ...] = ()

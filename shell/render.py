@@ -82,7 +82,12 @@ def duration(s: float) -> str:
     years = s / (365.25 * 86400)
     if years < 1:
         return f"{s / 86400:.1f} days"
-    return f"{years:.3g} years"
+    if years < 100:
+        return f"{years:.3g} years"
+    if years < 1e15:
+        # two significant digits, written out: "300,000 years"
+        return f"{float(f'{years:.2g}'):,.0f} years"
+    return f"{num(years, 2)} years"
 
 
 # ---------------------------------------------------------------------------

@@ -21,6 +21,13 @@ from .toolbar import toolbar_text
 from .words import Quit
 
 PROMPT = "quadrat> "
+#: The prompt inside a what-if layer.
+WHATIF_PROMPT = "quadrat (what-if)> "
+
+
+def prompt_text(ws) -> str:
+    """The prompt: it shows a what-if layer while one is open."""
+    return WHATIF_PROMPT if ws.in_whatif else PROMPT
 
 
 def default_history() -> History:
@@ -50,7 +57,7 @@ class Repl:
     def __init__(self, app: App, *, input=None, output=None, history: History | None = None):
         self.app = app
         self.session = PromptSession(
-            PROMPT,
+            lambda: prompt_text(app.ws),
             completer=ShellCompleter(lambda: Names.of(app.ws)),
             complete_while_typing=False,
             history=history if history is not None else default_history(),

@@ -25,6 +25,8 @@ HEADER = "# quadrat session"
 #: Largest session file read, in bytes.
 MAX_SESSION_BYTES = 64 * 1024 * 1024
 _DATA = re.compile(r"^#\s*data\s+(?P<path>.+?)\s+sha256\s+(?P<sha>[0-9a-fA-F]{64})\s*$")
+#: A header comment that means to be a checksum line (and must then be whole).
+_DATA_LIKE = re.compile(r"^#\s*data\s.*\bsha256\b")
 
 
 @dataclass(frozen=True)
@@ -158,9 +160,11 @@ def read_session(path: str, shown: str | None = None) -> list[str]:
     return text.splitlines()
 
 
-def data_checks(lines: list[str]) -> list[DataCheck]:
+def data_checks(lines: list[str], shown: str = "the session file") -> list[DataCheck]:
     """The ``# data PATH sha256 HEX`` lines of the header (the comments and
-    blank lines before the first command)."""
+    blank lines before the first command). A checksum line that is not whole (a
+    digest cut short or altered) is refused rather than passed over, since the
+    check it stands for would silently not happen."""
     out = []
     for i, raw in enumerate(lines, 1):
         s = raw.strip()
@@ -171,6 +175,10 @@ def data_checks(lines: list[str]) -> list[DataCheck]:
         m = _DATA.match(s)
         if m is not None:
             out.append(DataCheck(m.group("path"), m.group("sha").lower(), i))
+        elif _DATA_LIKE.match(s):
+            raise ShellError(f"`{shown}` line {i}: a data checksum line reads `# data PATH "
+                             "sha256 HEX` with 64 hex digits; this one does not, so the data "
+                             "cannot be verified")
     return out
 
 
@@ -212,7 +220,7 @@ def replay(app, path: str, *, shown: str | None = None, allow_changed_data: bool
     if len(app.replaying) >= MAX_REPLAY_DEPTH:
         raise ShellError(f"replays nest more than {MAX_REPLAY_DEPTH} deep")
     lines = read_session(full, shown)
-    problems = verify_data(full, data_checks(lines))
+    problems = verify_data(full, data_checks(lines, shown))
     allow = allow_changed_data or app.allow_changed_data
     if problems and not allow:
         raise ShellError(f"`{shown}`: {problems[0]}; replay with --allow-changed-data to go on"

@@ -29,4 +29,7 @@ def toolbar_text(status: Status, width: int = 80) -> str:
         room = max(width - len(rest) - 3, 10)
         head = parts[0] if len(parts[0]) <= room else parts[0][:room - 3] + "..."
         text = f"{head} | {rest}"[:width]
+        if status.whatif and not text.endswith("what-if"):
+            # an open what-if layer must never be cut off the end
+            text = text[:max(width - len(" | what-if"), 0)] + " | what-if"
     return text

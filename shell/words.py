@@ -126,6 +126,17 @@ class Line:
         return self.end + 1
 
 
+def check_characters(line: Line) -> None:
+    """Refuse a control or format character in a command (an escape sequence, a
+    bidi override, a NUL byte): it could rewrite the terminal when echoed."""
+    from .printer import hidden, visible
+
+    for i in range(line.start, line.end):
+        ch = line.source[i]
+        if hidden(ch):
+            raise ShellError(f"character `{visible(ch)}` is not allowed in a command", i + 1)
+
+
 def split_commands(text: str) -> list[str]:
     """The commands of ``-c`` text: separated by newlines and by ``;``.
 

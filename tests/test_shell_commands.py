@@ -367,7 +367,7 @@ def test_check_of_a_discrete_equality(sh):
 def test_check_bad(model):
     assert model.error("check summary = 1") == (
         "error: column 7: `summary` is not a question with numbers to check; use one of prob, "
-        "mean, sd, quantile, interval, mode, evidence")
+        "mean, sd, quantile, interval, mode, evidence, predict, samplesize, compare")
     assert model.error("check mean p = 1, 2") == (
         "error: column 15: `mean` gives 1 number; the check has 2")
 

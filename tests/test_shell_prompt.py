@@ -111,7 +111,7 @@ def texts(text, names=NAMES, **kw):
 
 
 def test_completion_of_command_words():
-    assert texts("pr") == ["prior", "prob"]
+    assert texts("pr") == ["prior", "prob", "predict"]
     assert "quantile" in texts("") and "help" in texts("")
 
 

@@ -10,18 +10,21 @@ from ..replies import DataFile, Reply
 from ..words import Line, ShellError, path_word
 from .common import say
 
-DATA_USAGE = "data NAME = v1, v2, ...  or  data load FILE.csv [as PREFIX]"
+DATA_USAGE = "data [append] NAME = v1, v2, ...  or  data load | append FILE.csv [as PREFIX]"
+APPEND_USAGE = "data append NAME = v1, v2, ...  or  data append FILE.csv [as PREFIX]"
 _TYPED = re.compile(r"^(?P<name>[^\s=]+)\s*=(?!=)(?P<rest>.*)$", re.S)
 
 
 def _complete_data(words, text):
     if len(words) == 1:
-        return Slot(words=("load",), columns=True)
-    if words[1] == "load":
+        return Slot(words=("load", "append"), columns=True)
+    if words[1] in ("load", "append"):
         if len(words) == 2:
-            return Slot(files=(".csv",))
-        if len(words) == 3:
-            return Slot(words=("as",))
+            return Slot(files=(".csv",), columns=words[1] == "append")
+        if len(words) == 3 and "=" not in words[2]:
+            if words[2].lower().endswith(".csv") or words[1] == "load":
+                return Slot(words=("as",))
+            return Slot(words=("=",))
     return NOTHING
 
 
@@ -42,7 +45,14 @@ def split_values(text: str) -> list[str]:
          names and numeric cells; `as PREFIX` names its columns PREFIX_name. A relative
          path in a session file is read from the session file's folder. The SHA-256 of
          every file read goes into saved sessions, so that a replay can tell whether it
-         reads the same data. A column of the same name is replaced.""")
+         reads the same data. A column of the same name is replaced. `data append NAME =
+         v1, ...` adds values at the end of a column, and `data append FILE.csv [as
+         PREFIX]` adds the rows of a CSV file to the table loaded with the same header:
+         a current posterior is then updated by evaluating only the new rows'
+         log-likelihood on its grid, and if the mass moves toward an edge of the grid the
+         grid is re-sized, and you are told. While the columns of a likelihood differ in
+         length (one appended, the other not yet), the posterior waits and questions say
+         which columns and how many rows.""")
 def data(app, line: Line):
     seg = line.rest(1)
     if not seg.text:
@@ -56,6 +66,8 @@ def data(app, line: Line):
         say(app, app.ws.data_typed(m.group("name"), values))
         return None
     w = line.words
+    if w[1].text == "append":
+        return _append(app, line)
     if w[1].text != "load":
         raise ShellError(f"expected `=` after `{w[1].text}` or `data load FILE.csv`; usage: "
                          f"{DATA_USAGE}", w[1].end + 1)
@@ -73,5 +85,50 @@ def data(app, line: Line):
         prefix = w[4].text
     ws = app.ws
     say(app, ws.data_load(path, prefix))
+    record = ws.state.data.files[-1]
+    return Reply(data_file=DataFile(path, os.path.abspath(ws.resolve(path)), record.sha256))
+
+
+def _progress_call(app, call, *args, **kwargs):
+    bar = app.printer.progress()
+    try:
+        return call(*args, progress=bar, **kwargs)
+    finally:
+        bar.close()
+
+
+def _append(app, line: Line):
+    """``data append NAME = v1, ...`` or ``data append FILE.csv [as PREFIX]``."""
+    ws = app.ws
+    seg = line.rest(2)
+    if not seg.text:
+        raise ShellError(f"`data append` needs more: {APPEND_USAGE}", line.end_column())
+    m = _TYPED.match(seg.text)
+    if m is not None:
+        name = m.group("name")
+        values = split_values(m.group("rest"))
+        if values == [""]:
+            raise ShellError(f"`data append {name}` has no values after `=`",
+                             seg.start + m.start("rest") + 1)
+        if name not in ws.state.data:
+            raise ShellError(f"no data column `{name}` to append to; `data {name} = ...` "
+                             "gives a new one", seg.column)
+        say(app, _progress_call(app, ws.data_append, name, values))
+        return None
+    w = line.words
+    if w[2].text in ws.state.data:
+        raise ShellError(f"expected `=` after `{w[2].text}`; usage: {APPEND_USAGE}",
+                         w[2].end + 1)
+    path = path_word(w[2])
+    prefix = None
+    if len(w) > 3:
+        if w[3].text != "as":
+            raise ShellError(f"unexpected `{w[3].text}`; usage: {APPEND_USAGE}", w[3].column)
+        if len(w) < 5:
+            raise ShellError("`as` needs a prefix", line.end_column())
+        if len(w) > 5:
+            raise ShellError(f"unexpected `{w[5].text}`", w[5].column)
+        prefix = w[4].text
+    say(app, _progress_call(app, ws.data_append_file, path, prefix))
     record = ws.state.data.files[-1]
     return Reply(data_file=DataFile(path, os.path.abspath(ws.resolve(path)), record.sha256))

@@ -3,12 +3,17 @@
 from __future__ import annotations
 
 from engine.grid import SCALES
+from engine.plan import format_count
 from engine.rules import RULE_HELP, RULES
 
 from .. import render as R
 from ..registry import NOTHING, Slot, command
 from ..words import Line, ShellError, number, whole
 from .common import notes, say
+
+#: `compute` refuses grids of this many points even when forced (the engine's
+#: limit in `Workspace._check_cost`: point indices must fit in 64 bits).
+COUNT_LIMIT = 2**62
 
 GRID_USAGE = "grid NAME LO HI [N] [linear|log|logit]  or  grid auto"
 
@@ -69,37 +74,44 @@ def rule(app, line: Line):
 
 
 @command("cost", usage="cost", group="grid",
-         help="""Says what a `compute` would take: the grid (axes not set come from `grid
-         auto`), the number of points, the memory and the time, measured on a sample of
-         points on this machine.""")
+         help="""Says what a `compute` would take: the rule and the grid (axes not set come
+         from `grid auto`), the number of points (10^20 for twenty axes of 10 points), the
+         memory against the machine's, and the time, from a short measured run of this
+         model's density on this machine; then what the next refinement steps would take.
+         When the job is over the time budget or the memory, it says so and suggests a
+         cheaper way.""")
 def cost(app, line: Line):
     w = line.words
     if len(w) > 1:
         raise ShellError(f"unexpected `{w[1].text}`", w[1].column)
     rep = app.ws.cost()
     p = app.printer
+    p.line(f"rule   {rep.rule}")
     for g in rep.grid:
         p.line("grid   " + g)
     c = rep.cost
-    p.line(f"points {R.count(c.points)}")
+    p.line(f"points {format_count(c.points)}")
     p.line(f"memory about {R.bytes_text(c.memory)} (this machine has "
            f"{R.bytes_text(c.machine_memory)})")
     p.line(f"time   about {R.duration(c.seconds)} ({R.num(c.seconds_per_point, 2)} s a point, "
            f"measured here)")
-    ahead = getattr(rep, "ahead", ())
-    if ahead:
-        p.line("finer grids, each step doubling the resolution of every continuous axis:")
+    if rep.ahead:
+        p.line("refinement steps ahead, each doubling the resolution of every continuous axis "
+               "(reusing the points already evaluated):")
         p.lines(R.table(["step", "points", "memory", "time"],
-                        [[str(a.step), R.count(a.points), R.bytes_text(a.memory),
-                          R.duration(a.seconds)] for a in ahead], indent=2))
+                        [[str(a.step), format_count(a.points), R.bytes_text(a.memory),
+                          R.duration(a.seconds)] for a in rep.ahead], indent=2))
     if rep.auto:
         p.note("axes not set come from `grid auto`")
-    if not c.fits:
+    if c.points >= COUNT_LIMIT:
+        p.warning(f"{format_count(c.points)} points are more than `compute` will take, even "
+                  "forced: use fewer points or fewer parameters")
+    elif not c.fits:
         p.warning("this does not fit in memory: use fewer points")
     elif c.seconds > rep.budget_seconds:
         p.warning(f"over the budget of {R.duration(rep.budget_seconds)}: `compute force` runs "
                   "it anyway")
-    if getattr(rep, "advice", ""):
+    if rep.advice:
         p.note(rep.advice)
 
 
@@ -107,8 +119,10 @@ def cost(app, line: Line):
          complete=lambda words, text: Slot(words=("force",)) if len(words) == 1 else NOTHING,
          help="""Evaluates the posterior on the grid (axes not set come from `grid auto`),
          with a progress bar when it takes more than a second. A job predicted to take
-         longer than the budget is refused unless `force` is given. Ctrl-C cancels it and
-         leaves everything as it was.""")
+         longer than the budget (10 minutes) is refused, with its cost and a cheaper way
+         (fewer points, `zoom`, another rule), unless `force` is given; a job that needs
+         more memory than the machine has is always refused. Ctrl-C cancels it and leaves
+         everything as it was.""")
 def compute(app, line: Line):
     w = line.words
     force = False

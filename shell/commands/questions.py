@@ -33,15 +33,45 @@ def _values(a: Answer) -> str:
     return f"{vals}  ({', '.join(R.err(e) for e in a.errors if e is not None)})"
 
 
+def side_by_side(label: str, now: str, whatif: str) -> tuple[str, ...]:
+    """Inside a what-if layer: the answer as things are and as they would be."""
+    return tuple(R.table(["", "now", "what if"], [[label, now, whatif]]))
+
+
+def answer_lines(label: str, a: Answer, values=_values) -> tuple[str, ...]:
+    """``LABEL = VALUES``, or the "now" and "what if" columns inside a layer."""
+    if a.now is not None:
+        return side_by_side(label, values(a.now), values(a))
+    return (f"{label} = {values(a)}",)
+
+
+def checkable(line: Line, values, tol: float) -> Shown | None:
+    """What a saved check line states, or None when a value is not a finite
+    number (a predictive whose mean does not exist): no check line can state it."""
+    if not all(math.isfinite(v) for v in values):
+        return None
+    return Shown(line.text, tuple(values), tol)
+
+
 def _asked(line: Line, a: Answer, shown_text: str, **tol) -> Asked:
-    return Asked(a, (f"{shown_text} = {_values(a)}",),
-                 Shown(line.text, a.values, R.check_tol(a.values, a.errors, **tol)))
+    lines = answer_lines(shown_text, a)
+    if a.kind in ("mean", "sd") and not all(math.isfinite(v) for v in a.values):
+        lines += (f"note: the {a.kind} does not exist here (the tails are too heavy)",)
+    return Asked(a, lines, checkable(line, a.values, R.check_tol(a.values, a.errors, **tol)))
+
+
+def answer_notes(app, a) -> None:
+    """The notes of an answer; inside a what-if layer also those of "now" that differ."""
+    notes(app, a.notes)
+    now = getattr(a, "now", None)
+    if now is not None:
+        notes(app, [f"now: {n}" for n in now.notes if n not in a.notes])
 
 
 def show(app, asked: Asked) -> Reply:
-    notes(app, asked.answer.notes)
+    answer_notes(app, asked.answer)
     app.printer.lines(asked.lines)
-    return Reply(shown=(asked.shown,))
+    return Reply(shown=(asked.shown,) if asked.shown is not None else ())
 
 
 def _handler(ask):
@@ -51,7 +81,7 @@ def _handler(ask):
 
 
 def _FORMULA(words, text) -> Slot:
-    return Slot.formula()
+    return Slot.formula(predicted=True)
 
 
 # ---------------------------------------------------------------------------
@@ -66,7 +96,8 @@ def ask_prob(app, line: Line) -> Asked:
 def ask_mean(app, line: Line) -> Asked:
     seg = _formula(line, "an expression, as in `mean p`")
     a = formula_at(seg, app.ws.mean, seg.text)
-    return _asked(line, a, line.text, scale=a.detail.sd.value)
+    sd = a.detail.sd   # an Estimate; a plain number for a predicted observation
+    return _asked(line, a, line.text, scale=getattr(sd, "value", sd))
 
 
 def ask_sd(app, line: Line) -> Asked:
@@ -89,9 +120,10 @@ def ask_quantile(app, line: Line) -> Asked:
     return _asked(line, a, line.text)
 
 
-def question(name: str, usage: str, help: str, ask, complete=_FORMULA) -> None:
+def question(name: str, usage: str, help: str, ask, complete=_FORMULA,
+             group: str = "question") -> None:
     """Register a question command from its `ask` function."""
-    command(name, usage=usage, kind="question", group="question", complete=complete,
+    command(name, usage=usage, kind="question", group=group, complete=complete,
             ask=ask, help=help)(_handler(ask))
 
 
@@ -136,15 +168,20 @@ def ask_interval(app, line: Line) -> Asked:
             continue
         raise ShellError(f"unexpected `{x.text}`; usage: {INTERVAL_USAGE}", x.column)
     name = w[1].text
-    if name not in app.ws.state.model.param_names:
+    if name not in app.ws.state.model.param_names and name not in predicted_names(app.ws):
         raise ShellError(f"no parameter `{name}`", w[1].column)
     a = app.ws.interval(name, level, kind)
     return _asked(line, a, line.text, scale=abs(a.values[1] - a.values[0]))
 
 
+def predicted_names(ws) -> tuple[str, ...]:
+    """The names `predict` gave new observations."""
+    return tuple(p.name for p in ws.state.predictions)
+
+
 def _complete_interval(words, text):
     if len(words) == 1:
-        return Slot(params=True)
+        return Slot(params=True, predicted=True)
     return Slot(words=("0.9", "0.95", "0.99", "hpd", "central"))
 
 
@@ -157,8 +194,13 @@ def ask_mode(app, line: Line) -> Asked:
     post = app.ws.state.posterior
     sds = [post.marginals[n].sd for n in m.values if n in post.marginals] if post else []
     floor = 1e-5 * max(sds, default=0.0)
-    text = "mode " + ", ".join(f"{n} = {R.num(v)}" for n, v in m.values.items())
     tol = R.check_tol(a.values, a.errors, floor=floor)
+    if a.now is not None:
+        lines = side_by_side("mode " + ", ".join(m.values),
+                             ", ".join(R.num(v) for v in a.now.values),
+                             ", ".join(R.num(v) for v in a.values))
+        return Asked(a, lines, Shown(line.text, a.values, tol))
+    text = "mode " + ", ".join(f"{n} = {R.num(v)}" for n, v in m.values.items())
     return Asked(a, (text + (f"  ({m.message})" if m.message else ""),),
                  Shown(line.text, a.values, tol))
 
@@ -174,7 +216,8 @@ def ask_evidence(app, line: Line) -> Asked:
 question("interval", INTERVAL_USAGE, ask=ask_interval, complete=_complete_interval, help="""
     A credible interval of a parameter: central (equal tails, the default) or hpd (highest
     density; a region of several pieces is listed in a note), at LEVEL (default 0.95; 90%
-    also reads).""")
+    also reads). For a name given to `predict`, the central interval of the new
+    observation.""")
 question("mode", "mode", ask=ask_mode, complete=lambda words, text: NOTHING, help="""
     The joint posterior mode: the best grid point, polished by an optimiser over the
     continuous parameters (in the parameters' own units).""")
@@ -199,12 +242,31 @@ def summary(app, line: Line):
     if len(w) > 1:
         raise ShellError(f"unexpected `{w[1].text}`: `summary` takes nothing", w[1].column)
     s = app.ws.summary()
-    notes(app, s.notes)
-    rows, shown, errs = [], [], []
+    answer_notes(app, s)
+    if s.now is not None:
+        return _summary_side_by_side(app, s)
+    rows, errs = [], []
     for r in s.rows:
         ests = (r.mean, r.sd, r.q025, r.q50, r.q975)
         rows.append([r.name] + [R.num(e.value) for e in ests])
         errs.extend(e.error for e in ests if e.error is not None)
+    p = app.printer
+    p.lines(R.table(["param", "mean", "sd", "2.5%", "50%", "97.5%"], rows))
+    ev = s.log_evidence
+    if ev is not None:
+        p.line("log evidence = " + R.with_error(ev.value, ev.error))
+    else:
+        p.line("log evidence: not defined (the prior is improper)")
+    tail = f"{R.count(s.points)} grid points"
+    if errs:
+        tail += f"; largest estimated error {R.err(max(errs))[2:]}"
+    p.line(tail)
+    return Reply(shown=tuple(_summary_shown(s)))
+
+
+def _summary_shown(s) -> list[Shown]:
+    shown = []
+    for r in s.rows:
         sd = r.sd.value
         shown.append(Shown(f"mean {r.name}", (r.mean.value,),
                            R.check_tol([r.mean.value], [r.mean.error], scale=sd)))
@@ -212,19 +274,33 @@ def summary(app, line: Line):
         for q, e in (("0.025", r.q025), ("0.5", r.q50), ("0.975", r.q975)):
             shown.append(Shown(f"quantile {r.name} {q}", (e.value,),
                                R.check_tol([e.value], [e.error], scale=sd)))
-    p = app.printer
-    p.lines(R.table(["param", "mean", "sd", "2.5%", "50%", "97.5%"], rows))
-    ev = s.log_evidence
-    if ev is not None:
-        p.line("log evidence = " + R.with_error(ev.value, ev.error))
+    if s.log_evidence is not None:
+        ev = s.log_evidence
         shown.append(Shown("evidence", (ev.value,), R.check_tol([ev.value], [ev.error])))
-    else:
-        p.line("log evidence: not defined (the prior is improper)")
-    tail = f"{R.count(s.points)} grid points"
-    if errs:
-        tail += f"; largest estimated error {R.err(max(errs))[2:]}"
-    p.line(tail)
-    return Reply(shown=tuple(shown))
+    return shown
+
+
+def _summary_side_by_side(app, s) -> Reply:
+    """The summary inside a what-if layer: each parameter's row now and what if;
+    the check lines state the what-if values."""
+    now = {r.name: r for r in s.now.rows}
+    rows = []
+    for r in s.rows:
+        for which, x in (("now", now.get(r.name)), ("what if", r)):
+            if x is None:
+                continue
+            rows.append([r.name, which] + [R.num(e.value) for e in
+                                           (x.mean, x.sd, x.q025, x.q50, x.q975)])
+    p = app.printer
+    p.lines(R.table(["param", "", "mean", "sd", "2.5%", "50%", "97.5%"], rows,
+                    align="llrrrrr"))
+
+    def ev(x):
+        return R.num(x.log_evidence.value) if x.log_evidence is not None else "not defined"
+
+    p.line(f"log evidence: now {ev(s.now)}, what if {ev(s)}")
+    p.line(f"grid points: now {R.count(s.now.points)}, what if {R.count(s.points)}")
+    return Reply(shown=tuple(_summary_shown(s)))
 
 
 # ---------------------------------------------------------------------------
@@ -243,11 +319,13 @@ def _complete_check(words, text):
 
 @command("check", usage=CHECK_USAGE, kind="check", group="question", complete=_complete_check,
          help="""Asks a question that yields numbers (prob, mean, sd, quantile, interval,
-         evidence, mode) and compares its answer with VALUE (the value follows the last
-         lone `=`), as in `check prob p > 0.5 = 0.013 tol 1e-4` or `check interval p 0.95
-         = 0.10, 0.52`. `tol` is absolute; without it, the precision the value is written
-         to is the tolerance. A check that fails is reported with both values and makes a
-         batch run end with status 1. `save` writes one after every question.""")
+         evidence, mode, predict, compare, samplesize) and compares its answer with VALUE
+         (the value follows the last lone `=`), as in `check prob p > 0.5 = 0.013 tol 1e-4`
+         or `check interval p 0.95 = 0.10, 0.52`. `tol` is absolute; without it, the
+         precision the value is written to is the tolerance. Inside a what-if layer it
+         compares the what-if value. A check that fails is reported with both values and
+         makes a batch run end with status 1. `save` writes one after every question, and
+         after `refine` and `zoom` for the values they reached.""")
 def check(app, line: Line):
     w = line.words
     if len(w) < 2:

@@ -39,6 +39,9 @@ def save(app, line: Line):
     app.printer.line(f"saved `{rep.path}`: {rep.commands} command"
                      f"{'s' if rep.commands != 1 else ''}, {rep.checks} check"
                      f"{'s' if rep.checks != 1 else ''}{extra}")
+    if app.ws.in_whatif:
+        app.printer.note("saved inside a what-if layer: the file ends inside it, without "
+                         "`whatif end`")
 
 
 _ALLOW = ("--allow-changed-data", "allow-changed-data")
@@ -49,7 +52,8 @@ _ALLOW = ("--allow-changed-data", "allow-changed-data")
          else Slot(words=(_ALLOW[0],)),
          help="""Runs a session file, line by line, as if typed. First it checks the SHA-256 of
          every data file in the file's header and refuses a file that changed, naming it,
-         unless `--allow-changed-data` is given. It stops at the first error; every check
+         unless `--allow-changed-data` is given. It stops at the first error, and then keeps
+         nothing of the file: the state is as before the replay. Every check
          that moved is reported with its old and new value. Relative paths in the file are
          read from the file's folder. Ctrl-C stops it and leaves the state as before.""")
 def replay(app, line: Line):
@@ -65,19 +69,21 @@ def replay(app, line: Line):
                              "[--allow-changed-data]", x.column)
     path = path_word(w[1])
     tally = script.replay(app, path, allow_changed_data=allow)
-    report(app, path, tally)
+    report(app, path, tally, undone=True)
     if tally.errors:
-        return Reply(status="error")
+        return Reply(status="error")  # the dispatcher puts the state back
     return Reply(status="failed" if tally.failed else "ok")
 
 
-def report(app, path: str, tally) -> None:
-    """One line on how a replay went."""
+def report(app, path: str, tally, *, undone: bool = False) -> None:
+    """One line on how a replay went (`undone`: a replay that ends in an error is
+    undone whole, and the line says so)."""
     checks = tally.checked + tally.failed
     if tally.errors:
-        app.printer.error(f"replay of `{path}` stopped at an error" if not app.keep_going else
-                          f"replay of `{path}` had {tally.errors} error"
-                          f"{'s' if tally.errors != 1 else ''}")
+        tail = "; the state is as it was before the replay" if undone else ""
+        app.printer.error((f"replay of `{path}` stopped at an error" if not app.keep_going else
+                           f"replay of `{path}` had {tally.errors} error"
+                           f"{'s' if tally.errors != 1 else ''}") + tail)
     elif tally.failed:
         app.printer.error(f"replayed `{path}`: {tally.failed} of {checks} checks moved")
     elif checks:
@@ -104,8 +110,10 @@ def history(app, line: Line):
 
 @command("undo", usage="undo", group="session", complete=lambda words, text: NOTHING,
          help="""Undoes the last command that changed the state (a declaration, data, a
-         grid, a rule, a compute, a reset): everything is as it was before it, and it leaves
-         the session, with any questions asked after it.""")
+         grid, a rule, a compute, a refine or zoom, a keep, a reset): everything is as it
+         was before it, and it leaves the session, with any questions asked after it. Inside
+         a what-if layer it undoes the layer's own changes only (`whatif end` drops the
+         rest); after a layer, it passes over it to the change before.""")
 def undo(app, line: Line):
     w = line.words
     if len(w) > 1:

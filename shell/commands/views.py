@@ -144,29 +144,52 @@ def grid_lines(ws) -> list[str]:
 # plot
 
 def _complete_plot(words, text):
-    return Slot(params=True) if len(words) in (1, 2) else NOTHING
+    if len(words) == 1:
+        return Slot(params=True, predicted=True, words=("refine",))
+    return Slot(params=True) if len(words) == 2 and words[1] != "refine" else NOTHING
 
 
-@command("plot", usage="plot NAME [NAME2]", group="view", complete=_complete_plot,
+PLOT_USAGE = "plot NAME [NAME2]  or  plot refine"
+
+
+@command("plot", usage=PLOT_USAGE, group="view", complete=_complete_plot,
          help="""Draws the posterior marginal of a parameter in the terminal, with its central
          95% interval marked (a discrete parameter as bars); with two names, their joint
-         posterior as a density picture. The picture fits the terminal's width.""")
+         posterior as a density picture. A name given to `predict` draws the predictive
+         pmf or density of the new observation. `plot refine` draws how the refinement
+         steps of the current posterior converged: the largest relative change at each
+         step and the change of the log evidence, on a log scale when they span decades.
+         The picture fits the terminal's width.""")
 def plot(app, line: Line):
     from .. import plots  # drawn by its own module
 
     w = line.words
     if len(w) < 2:
-        raise ShellError("`plot` needs a parameter: plot NAME [NAME2]", line.end_column())
+        raise ShellError(f"`plot` needs a parameter: {PLOT_USAGE}", line.end_column())
     if len(w) > 3:
-        raise ShellError(f"unexpected `{w[3].text}`; usage: plot NAME [NAME2]", w[3].column)
+        raise ShellError(f"unexpected `{w[3].text}`; usage: {PLOT_USAGE}", w[3].column)
     params = app.ws.state.model.param_names
+    if w[1].text == "refine" and "refine" not in params:
+        if len(w) > 2:
+            raise ShellError(f"unexpected `{w[2].text}`: `plot refine` takes nothing",
+                             w[2].column)
+        return plot_refine(app)
+    predicted = {p.name for p in app.ws.state.predictions}
+    if len(w) == 2 and w[1].text not in params and w[1].text in predicted:
+        return plot_predicted(app, w[1].text)
     for x in w[1:]:
         if x.text not in params:
             raise ShellError(f"no parameter `{x.text}`", x.column)
     if len(w) == 3 and w[1].text == w[2].text:
         raise ShellError("a joint plot needs two different parameters", w[2].column)
-    post, why = app.ws.posterior()
+    if len(w) == 3:
+        # refused before anything is computed when the joint would not fit in memory
+        mass, post, why = app.ws.joint(w[1].text, w[2].text)
+    else:
+        post, why = app.ws.posterior()
     notes(app, why)
+    if app.ws.in_whatif:
+        app.printer.note("drawn for the what-if state")
     p = app.printer
     try:
         if len(w) == 2:
@@ -179,13 +202,66 @@ def plot(app, line: Line):
                                   height=20, discrete=m.discrete, interval=iv, color=p.color)
         else:
             a, b = w[1].text, w[2].text
-            mass = post.pair(a, b)
             i, j = crop(mass.sum(axis=1)), crop(mass.sum(axis=0))
             text = plots.joint(post.grid.axis(a).values[i], post.grid.axis(b).values[j],
                                mass[i, j], xname=a, yname=b, width=p.width, height=24,
                                color=p.color)
     except ValueError as exc:
         raise ShellError(f"cannot draw it: {exc}") from None
+    p.lines(text.splitlines())
+
+
+#: Changes below this are drawn at it (a log axis has no room for 0).
+TINY_CHANGE = 1e-16
+
+
+def plot_refine(app) -> None:
+    """The convergence of the refinement steps of the current posterior."""
+    from .. import plots
+
+    ws = app.ws
+    steps = [s for s in ws.state.steps if s.step > 0 and s.largest is not None]
+    if not steps:
+        raise ShellError("no refinement steps to draw: `refine` or `refine until TOL` first")
+    if ws.status().posterior == "out of date":
+        app.printer.note("these steps refined the posterior from before the last change")
+    x = np.arange(1, len(steps) + 1, dtype=float)
+    series = {"largest change": [max(s.largest, TINY_CHANGE) for s in steps]}
+    ev = [s.changes.get("log evidence", s.changes.get("log mass")) for s in steps]
+    if all(v is not None and np.isfinite(v) for v in ev):
+        series["log evidence change"] = [max(v, TINY_CHANGE) for v in ev]
+    p = app.printer
+    try:
+        text = plots.convergence(x, series, width=p.width, height=16, color=p.color,
+                                 xname="refinement step")
+    except ValueError as exc:
+        raise ShellError(f"cannot draw it: {exc}") from None
+    p.lines(text.splitlines())
+    p.lines(R.table(["step", "points", "largest change", "moved"],
+                    [[str(i), R.count(s.points), R.num(s.largest, 2), s.moved]
+                     for i, s in enumerate(steps, 1)], align="rrrl"))
+
+
+def plot_predicted(app, name: str) -> None:
+    """The predictive pmf or density of a new observation named by `predict`."""
+    from .. import plots
+
+    a = app.ws.mean(name)
+    notes(app, a.notes)
+    pv = a.detail
+    p = app.printer
+    values, dens = np.asarray(pv.values, float), np.asarray(pv.density, float)
+    iv = None
+    if not pv.discrete:
+        iv = (pv.quantile(0.025), pv.quantile(0.975))
+    k = crop(dens)
+    try:
+        text = plots.marginal(values[k], dens[k], name=f"new {name}", width=p.width,
+                              height=20, discrete=pv.discrete, interval=iv, color=p.color)
+    except ValueError as exc:
+        raise ShellError(f"cannot draw it: {exc}") from None
+    if a.now is not None:
+        p.note("drawn for the what-if state")
     p.lines(text.splitlines())
 
 
