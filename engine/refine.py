@@ -331,6 +331,12 @@ def auto_grid(compiled: Compiled, *, points: dict[str, int] | None = None,
     disc = [p for p in params if p.discrete]
     cont = [p for p in params if not p.discrete]
     dims = len(params)
+    if 3 ** len(cont) * math.prod(len(p.values) for p in disc) > 25 * CHECK_POINTS:
+        raise ComputeError(
+            f"grid auto: {len(cont)} continuous parameters; even 3 points per axis make "
+            f"3^{len(cont)} points to check. A tensor grid grows as N^d and is the wrong tool "
+            "at this many dimensions; set small grids yourself with `grid`, or fix some "
+            "parameters")
     npts = default_points(max(len(cont), 1))
     # discrete parameters: fix them at the best value of a coarse look for the mode search
     fixed = {}
@@ -376,7 +382,8 @@ def auto_grid(compiled: Compiled, *, points: dict[str, int] | None = None,
         total = math.prod(want.values()) * math.prod(len(p.values) for p in disc)
         if total > CHECK_POINTS:
             f = (CHECK_POINTS / total) ** (1 / max(len(cont), 1))
-            want = {k: max(9, int(v * f)) for k, v in want.items()}
+            floor = 9 if 9 ** len(cont) <= 4 * CHECK_POINTS else 3
+            want = {k: max(floor, int(v * f)) for k, v in want.items()}
         return {k: v + (1 - v % 2) for k, v in want.items()}
 
     grow = {p.name: [0, 0] for p in cont}

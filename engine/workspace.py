@@ -597,6 +597,16 @@ class Workspace:
         """Shrink every axis to the region holding `mass` and compute again with the
         same number of points."""
         post, notes = self._fresh_posterior(progress)
+        # the region holding the mass is read off this posterior: it must be resolved
+        # and inside its grid, or the zoomed grid would cut real mass off
+        if post.diagnostics.min_points_per_sd < MIN_POINTS_PER_SD:
+            raise GridError(
+                f"the grid is too coarse to zoom from ({post.diagnostics.min_points_per_sd:.2g} "
+                f"points across one sd; want at least {MIN_POINTS_PER_SD:g}): `refine` first")
+        edges = self._warnings(post)
+        if any("edge of" in w for w in edges):
+            raise GridError("mass at a grid edge: zoom would keep it cut off; widen the grid "
+                            "or use `grid auto` first")
         specs = zoom_specs(post, mass)
         s = self.state
         compiled = self.compiled()
@@ -794,13 +804,18 @@ class Workspace:
             return ans
         base, stack = self._whatif
         cur, cur_stack, cache = self.state, self.undo_stack, self._compiled_cache
+        notes = ()
         try:
             self.state, self.undo_stack = base, list(stack)
             now = method(*args)
             self._whatif = (self.state, stack)   # keep a recomputation of "now"
+        except QuadratError as exc:
+            # the question may use names declared inside the layer
+            now = None
+            notes = (f"no answer as things are: {exc}",)
         finally:
             self.state, self.undo_stack, self._compiled_cache = cur, cur_stack, cache
-        return replace(ans, now=now)
+        return replace(ans, now=now, notes=tuple(ans.notes) + notes)
 
     def summary(self) -> Summary:
         return self._ask(self._summary)

@@ -36,6 +36,9 @@ def parser() -> argparse.ArgumentParser:
                    help="replay even when a data file's SHA-256 differs from the one saved")
     p.add_argument("--debug", action="store_true",
                    help="print the traceback of an unexpected error on standard error")
+    p.add_argument("--budget", type=float, metavar="SECONDS", default=None,
+                   help="the time budget: `compute` refuses jobs predicted to take longer "
+                        "(default 600 s; `budget SECONDS` sets it inside a session)")
     p.add_argument("--version", action="version", version=f"quadrat {__version__}")
     return p
 
@@ -57,6 +60,11 @@ def main(argv: list[str] | None = None, *, stdin=None, stdout=None, stderr=None)
     printer = Printer(stdout, stdout if interactive else stderr)
     app = App(printer, debug=args.debug, keep_going=args.keep_going,
               allow_changed_data=args.allow_changed_data)
+    if args.budget is not None:
+        if not (args.budget > 0 and args.budget < float("inf")):
+            stderr.write("quadrat: --budget needs a positive number of seconds\n")
+            return 2
+        app.ws.budget_seconds = args.budget
     try:
         if interactive:
             from .repl import Repl

@@ -255,3 +255,18 @@ def test_parameter_names_like_internal_placeholders(a, b):
         got = c.log_likelihood([np.array([m]), np.array([v])])[0]
         ref = st.norm(m, math.sqrt(v)).logpdf([1.0, 2.0, 0.5]).sum()
         assert got == pytest.approx(ref, abs=1e-12)
+
+
+def test_whatif_question_about_a_name_declared_in_the_layer():
+    # the "now" side has no such name: the question still answers what-if, and says so
+    w = bernoulli_ws([1, 0, 1])
+    w.compute()
+    w.whatif_begin()
+    w.let("odds", "p / (1 - p)")
+    ans = w.mean("odds")
+    assert ans.now is None
+    assert any("no answer as things are" in n for n in ans.notes)
+    # p ~ beta(4, 4) here; E[p/(1-p)] = a/(b-1) for a beta(a, b) (common practice)
+    assert ans.values[0] == pytest.approx(4 / 3, abs=1e-6)
+    assert abs(ans.values[0] - 4 / 3) <= ans.errors[0] + 1e-12
+    w.whatif_end()

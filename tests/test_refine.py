@@ -239,3 +239,20 @@ def test_zoom_keeps_points_and_shrinks_bounds():
     assert a.lo == pytest.approx(ref.ppf(5e-10), rel=1e-3)
     assert a.hi == pytest.approx(ref.isf(5e-10), rel=1e-3)
     assert w.state.posterior.param_mean("p").value == pytest.approx(ref.mean(), abs=1e-8)
+
+
+def test_zoom_refuses_a_grid_too_coarse_to_read_the_mass_from():
+    w = beta_binomial_ws()
+    w.grid("p", 0.01, 0.99, 7)
+    w.compute()
+    with pytest.raises(GridError, match="too coarse to zoom from"):
+        w.zoom()
+
+
+def test_grid_auto_refuses_twenty_dimensions_with_the_figure():
+    w = Workspace()
+    for i in range(20):
+        w.param(f"a{i}", "real")
+        w.prior(f"a{i}", "normal(0, 1)")
+    with pytest.raises(ComputeError, match=r"3\^20 points.*wrong tool"):
+        w.cost()

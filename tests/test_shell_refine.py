@@ -283,3 +283,23 @@ def test_completion_of_refine_zoom_and_plot():
     assert texts("zoom ") == ["0.999999", "force"]
     assert texts("plot ") == ["refine", "mu", "sigma", "ynew"]
     assert texts("compute ") == ["force"]
+
+
+def test_budget_command_and_option():
+    # a 2,000,001-point grid against a 1 ms budget: refused with the figure; a bad budget
+    # is one error line
+    from shell.main import main
+    import io
+    out, err = io.StringIO(), io.StringIO()
+    code = main(["-c", "budget 0.001; param a real; prior a ~ normal(0, 1); "
+                       "grid a -5 5 2000001; compute"], stdout=out, stderr=err)
+    assert code == 2
+    assert "time budget: 1 ms" in out.getvalue()
+    assert "2,000,001 points" in err.getvalue() and "budget 1 ms" in err.getvalue()
+    out, err = io.StringIO(), io.StringIO()
+    assert main(["-c", "budget -1"], stdout=out, stderr=err) == 2
+    assert "the budget must be a positive number of seconds; got -1" in err.getvalue()
+    out, err = io.StringIO(), io.StringIO()
+    code = main(["--budget", "0.0001", "-c", "param a real; prior a ~ normal(0, 1); "
+                 "grid a -5 5 2000001; compute"], stdout=out, stderr=err)
+    assert code == 2 and "2,000,001 points" in err.getvalue()

@@ -73,6 +73,24 @@ def rule(app, line: Line):
     say(app, app.ws.rule(w[1].text))
 
 
+@command("budget", usage="budget [SECONDS]", kind="note", group="grid",
+         help="""Shows or sets the time budget: `compute`, `refine` and `zoom` refuse a job
+         predicted to take longer (unless `compute force`). The default is 600 seconds (10
+         minutes); `quadrat --budget SECONDS` sets it from the start. Saved sessions keep it,
+         so a replay meets the same limit.""")
+def budget(app, line: Line):
+    w = line.words
+    if len(w) > 2:
+        raise ShellError(f"unexpected `{w[2].text}`", w[2].column)
+    if len(w) == 2:
+        seconds = number(w[1], "SECONDS")
+        if not seconds > 0:
+            raise ShellError(f"the budget must be a positive number of seconds; got "
+                             f"{w[1].text}", w[1].column)
+        app.ws.budget_seconds = seconds
+    app.printer.line(f"time budget: {R.duration(app.ws.budget_seconds)}")
+
+
 @command("cost", usage="cost", group="grid",
          help="""Says what a `compute` would take: the rule and the grid (axes not set come
          from `grid auto`), the number of points (10^20 for twenty axes of 10 points), the
