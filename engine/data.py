@@ -171,6 +171,9 @@ def parse_number(text: str, where: str) -> float:
         raise DataError(f"{where}: `{shown}` is not a number") from None
     if not math.isfinite(v):
         raise DataError(f"{where}: `{t}` is out of range")
+    if v == 0 and any(c in "123456789" for c in low.split("e")[0]):
+        # a nonzero value below double precision would silently become 0
+        raise DataError(f"{where}: `{t}` is too small (it rounds to 0 in double precision)")
     return check_value(v, where)
 
 

@@ -166,8 +166,9 @@ def check_name(name: str, what: str = "name") -> str:
         reserved (a function, a constant or a word of the command language).
     """
     if not _NAME.match(name):
+        shown = name if len(name) <= 40 else name[:37] + "..."
         raise FormulaError(
-            f"{what} `{name}` must start with a letter and use only letters, digits and _")
+            f"{what} `{shown}` must start with a letter and use only letters, digits and _")
     if name in RESERVED:
         raise FormulaError(f"{what} `{name}` is a reserved word of quadrat; choose another")
     if len(name) > 64:

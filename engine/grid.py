@@ -161,8 +161,9 @@ def make_axis(p: Param, lo: float, hi: float, n: int | None = None, *,
                         f"`{p.name}` ({p.describe()})")
     n = n or p.points or DEFAULT_POINTS
     if int(n) != n or n < 1 or n > MAX_AXIS_POINTS:
+        shown = n if abs(n) < 1e15 else format(float(n), "g")
         raise GridError(f"grid `{p.name}`: points must be a whole number from 1 to "
-                        f"{MAX_AXIS_POINTS:,}; got {n}")
+                        f"{MAX_AXIS_POINTS:,}; got {shown}")
     n = int(n)
     if rule not in RULES:
         raise GridError(f"unknown rule `{rule}`; known: {', '.join(RULES)}")

@@ -169,7 +169,8 @@ def _sampled_seconds(compiled: Compiled, grid: Grid, sample: int = 20_000) -> fl
         lw = np.zeros(sample)
         for a, i in zip(grid.axes, idx):
             lw += a.logw[i]
-        w = np.exp(lp + lw - np.max(lp + lw))
+        with np.errstate(all="ignore"):  # a log-density of -inf everywhere is timed too
+            w = np.exp(lp + lw - np.max(lp + lw))
         for _lev in range(grid.levels + 1):
             for a, i in zip(grid.axes, idx):
                 np.bincount(i, weights=w, minlength=a.n)

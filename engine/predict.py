@@ -32,6 +32,8 @@ from .questions import walk
 MIX_TAIL = 1e-13
 #: Most grid points a predictive mixes over.
 MIX_MAX = 2_000_000
+#: Most whole numbers the pmf table of a discrete predictive holds.
+MAX_PMF_VALUES = 100_000
 
 
 @dataclass(frozen=True)
@@ -152,6 +154,20 @@ def _mixture_points(post: Posterior) -> tuple[list[np.ndarray], np.ndarray]:
     return [t[keep] for t in th], w / w.sum()
 
 
+def _mixture_sd(w: np.ndarray, means: np.ndarray, sds: np.ndarray, mean: float) -> float:
+    """The sd of a mixture by the law of total variance, taken about the mean and
+    scaled so that no square overflows; NaN where a component has no sd."""
+    if not np.all(np.isfinite(sds)):
+        return math.nan
+    dev = means - mean
+    # differences at the rounding level of the mean are not spread
+    dev = np.where(np.abs(dev) <= 64 * np.spacing(abs(mean)), 0.0, dev)
+    scale = max(float(np.max(np.abs(dev))), float(np.max(sds)), 1e-300)
+    with np.errstate(all="ignore"):
+        inner = float(np.dot(w, (dev / scale) ** 2) + np.dot(w, (sds / scale) ** 2))
+    return scale * math.sqrt(max(inner, 0.0))
+
+
 def predictive(post: Posterior, name: str, family: str, args: Sequence[sp.Expr],
                model: Model) -> Predictive:
     """The posterior predictive of one new observation ``name ~ family(args)``.
@@ -186,19 +202,27 @@ def predictive(post: Posterior, name: str, family: str, args: Sequence[sp.Expr],
     argv = tuple(a[ok] for a in argv)
     with np.errstate(all="ignore"):
         means = np.asarray(dist.mean(), float)
-        var = np.asarray(dist.var(), float)
+        sds = np.asarray(dist.std(), float)
     if np.all(np.isfinite(means)):
-        mean = float(np.dot(w, means))
-        sd = float(math.sqrt(max(np.dot(w, var + means**2) - mean**2, 0.0))) \
-            if np.all(np.isfinite(var)) else math.nan
+        with np.errstate(all="ignore"):
+            mean = float(np.dot(w, means))
+        if not math.isfinite(mean):
+            raise ComputeError(f"predict: the mean of `{name}` overflows (beyond 1e308)")
+        sd = _mixture_sd(w, means, sds, mean)
     else:
         mean = sd = math.nan
+    if f.discrete and math.isfinite(mean) and abs(mean) + 40 * (sd if sd == sd else 0) > 2**53:
+        raise ComputeError(f"predict: `{name}` would be a count of about {mean:.3g}, beyond "
+                           "the whole numbers double precision holds exactly (2^53)")
     pred = Predictive(name, family, f.discrete, np.zeros(0), np.zeros(0), mean, sd, w, argv)
     if f.discrete:
         lo = _int_quantile(pred, 1e-12, low=True)
         hi = _int_quantile(pred, 1 - 1e-12, low=False)
-        if hi - lo > 100_000:
-            hi = lo + 100_000
+        if hi - lo > MAX_PMF_VALUES:
+            # a cut table would give wrong quantiles without a word
+            raise ComputeError(f"predict: `{name}` spreads over {hi - lo + 1:,} whole numbers "
+                               f"({lo:,} .. {hi:,}); its pmf table holds at most "
+                               f"{MAX_PMF_VALUES:,}")
         vals = np.arange(lo, hi + 1, dtype=float)
         pm = np.zeros(len(vals))
         for sl in _chunks(len(w), max(1, 2_000_000 // max(len(vals), 1))):

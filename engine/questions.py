@@ -129,10 +129,11 @@ def moments(post: Posterior, expr: sp.Expr) -> Moments:
         if shift is None:
             shift = float(np.sum(v * ws[0]) / max(np.sum(ws[0]), 1e-300))
         d = np.where(np.isfinite(v), v - shift, 0.0)
-        for k, w in enumerate(ws):
-            s0[k] += w.sum()
-            s1[k] += np.dot(w, d)
-            s2[k] += np.dot(w, d * d)
+        with np.errstate(over="ignore", invalid="ignore"):  # overflow is refused below
+            for k, w in enumerate(ws):
+                s0[k] += w.sum()
+                s1[k] += np.dot(w, d)
+                s2[k] += np.dot(w, d * d)
     with np.errstate(all="ignore"):
         means = [float(shift + s1[k] / s0[k]) for k in range(L)]
         var = [float(s2[k] / s0[k] - (s1[k] / s0[k]) ** 2) for k in range(L)]
@@ -229,6 +230,16 @@ def _fraction(rel: _Rel, theta, half: list[np.ndarray]) -> np.ndarray:
         eq = (s == 0).astype(float)
         out = eq if rel.op == "eq" else 1.0 - eq
     return np.where(np.isnan(s), np.nan, out)
+
+
+def _defined(post: Posterior, rels: list[_Rel]) -> None:
+    """Refuse a condition whose sides are not numbers where the posterior has mass,
+    whichever way it is then integrated."""
+    for _idx, theta, ws in walk(post):
+        for r in rels:
+            with np.errstate(all="ignore"):
+                s = np.broadcast_to(np.asarray(r.s(theta), float), ws[0].shape)
+            _undefined(post, theta, np.where(np.isnan(s), np.nan, 0.0), ws[0])
 
 
 def _undefined(post: Posterior, theta, ind: np.ndarray, w: np.ndarray) -> None:
@@ -331,6 +342,7 @@ def probability(post: Posterior, cond: sp.Basic) -> Estimate:
             vals.append(sum((1.0 if b == math.inf else m.cdf(b)) -
                             (0.0 if a == -math.inf else m.cdf(a)) for a, b in pieces))
         return _truncated(_levels_estimate(post, vals), post.diagnostics.missing)
+    _defined(post, _relations(e, post)[1])
     lines = regions.region_probability(post, e)
     if lines is not None:
         # high order, but not a clean power series (the cut moves across the cells as

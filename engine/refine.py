@@ -711,9 +711,12 @@ def refine(compiled: Compiled, post: Posterior, *, axis: str | None = None,
     return RefineResult(tuple(steps), current, converged, message)
 
 
-def zoom_specs(post: Posterior, mass: float = 1 - 1e-9) -> tuple[AxisSpec, ...]:
+def zoom_specs(post: Posterior, mass: float = 1 - 1e-9, *, margin: float = 0.0
+               ) -> tuple[AxisSpec, ...]:
     """Axes shrunk to the central region holding `mass` of each marginal, with the
-    same number of points."""
+    same number of points. The region read off the current grid is widened by
+    `margin` of its node spacings on each side: a coarse grid places its quantiles
+    only to about a cell."""
     if not 0 < mass < 1:
         raise GridError(f"zoom mass must be between 0 and 1; got {mass:g}")
     tail = (1 - mass) / 2
@@ -727,9 +730,42 @@ def zoom_specs(post: Posterior, mass: float = 1 - 1e-9) -> tuple[AxisSpec, ...]:
         hi = m.quantile(1 - tail)
         if not hi > lo:
             lo, hi = a.lo, a.hi
-        lo, hi = max(lo, a.lo), min(hi, a.hi)
-        scale = a.scale
-        if scale in ("log", "logit") and not (lo > a.dom_lo and (scale == "log" or hi < a.dom_hi)):
-            scale = "linear"
-        out.append(AxisSpec(a.name, float(lo), float(hi), a.n, scale))
+        du = abs(a.u[1] - a.u[0]) if a.n > 1 else 0.0
+        ulo, uhi = a.to_u(np.array([lo, hi]))
+        lo, hi = a.to_value(np.array([ulo - margin * du, uhi + margin * du]))
+        lo, hi = max(float(lo), a.lo), min(float(hi), a.hi)
+        out.append(AxisSpec(a.name, lo, hi, a.n, _zoom_scale(a, lo, hi)))
     return tuple(out)
+
+
+def _zoom_scale(a: Axis, lo: float, hi: float) -> str:
+    scale = a.scale
+    if scale in ("log", "logit") and not (lo > a.dom_lo and (scale == "log" or hi < a.dom_hi)):
+        scale = "linear"
+    return scale
+
+
+def widen_specs(post: Posterior, specs: tuple[AxisSpec, ...], *, edge_mass: float
+                ) -> tuple[tuple[AxisSpec, ...], list[str]]:
+    """Specs widened by half their span (on each axis's scale) at every end of `post`'s
+    grid that holds more than `edge_mass` and is not the domain's edge; and which ends."""
+    out, moved = [], []
+    for spec, a in zip(specs, post.grid.axes):
+        if a.discrete:
+            out.append(spec)
+            continue
+        m_lo, m_hi = post.diagnostics.edge_mass.get(a.name, (0.0, 0.0))
+        at_lo = a.scale == "linear" and a.lo <= a.dom_lo
+        at_hi = a.scale == "linear" and a.hi >= a.dom_hi
+        ua, ub = float(a.u[0]), float(a.u[-1])
+        span = ub - ua
+        lo, hi = spec.lo, spec.hi
+        if m_lo > edge_mass and not at_lo:
+            lo = float(a.to_value(np.array([ua - 0.5 * span]))[0])
+            moved.append(f"lower end of `{a.name}`")
+        if m_hi > edge_mass and not at_hi:
+            hi = float(a.to_value(np.array([ub + 0.5 * span]))[0])
+            moved.append(f"upper end of `{a.name}`")
+        lo, hi = max(lo, a.dom_lo), min(hi, a.dom_hi)
+        out.append(AxisSpec(a.name, lo, hi, spec.n, _zoom_scale(a, lo, hi)))
+    return tuple(out), moved

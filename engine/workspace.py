@@ -27,7 +27,7 @@ from .model import Compiled, Let, Likelihood, Model, Prior, compile_model, make_
 from .posterior import Estimate, Interval, Posterior, compute as compute_posterior
 from .refine import (AutoGrid, AxisSpec, RefineResult, RefineStep, auto_grid, axis_count,
                      build_grid,
-                     refine as refine_posterior, refined_grid, zoom_specs)
+                     refine as refine_posterior, refined_grid, widen_specs, zoom_specs)
 from .rules import RULES
 
 #: A question recomputes a stale posterior by itself when that is predicted to
@@ -477,6 +477,17 @@ class Workspace:
         self._compiled_cache = (key, c, s.model, s.data)  # keep the objects alive
         return c
 
+    def _check_count(self, s: State, compiled: Compiled) -> None:
+        """Refuse a grid of the user's axes with more points than can be counted,
+        before its axes are built (axes of millions of nodes take memory)."""
+        by = {x.name: x for x in s.specs}
+        if not all(p.name in by for p in compiled.params):
+            return
+        points = math.prod(axis_count(p, by[p.name]) for p in compiled.params)
+        if points >= 2**62:
+            raise ComputeError(f"this grid has {plan.format_count(points)} points: more than "
+                               "quadrat can count; use fewer points or fewer parameters")
+
     def _grid_for(self, s: State, compiled: Compiled) -> tuple[Grid, tuple[str, ...], tuple]:
         """The grid to compute on: the user's axes, and `grid auto` for the rest."""
         notes = []
@@ -533,6 +544,7 @@ class Workspace:
         """Evaluate the posterior. The state changes only when it succeeds."""
         s = self.state
         compiled = self.compiled()
+        self._check_count(s, compiled)
         grid, notes, _ = self._grid_for(s, compiled)
         self._check_cost(compiled, grid, force=force)
         post = compute_posterior(compiled, grid, progress=progress)
@@ -597,22 +609,24 @@ class Workspace:
         """Shrink every axis to the region holding `mass` and compute again with the
         same number of points."""
         post, notes = self._fresh_posterior(progress)
-        # the region holding the mass is read off this posterior: it must be resolved
-        # and inside its grid, or the zoomed grid would cut real mass off
-        if post.diagnostics.min_points_per_sd < MIN_POINTS_PER_SD:
-            raise GridError(
-                f"the grid is too coarse to zoom from ({post.diagnostics.min_points_per_sd:.2g} "
-                f"points across one sd; want at least {MIN_POINTS_PER_SD:g}): `refine` first")
-        edges = self._warnings(post)
-        if any("edge of" in w for w in edges):
-            raise GridError("mass at a grid edge: zoom would keep it cut off; widen the grid "
-                            "or use `grid auto` first")
         specs = zoom_specs(post, mass)
         s = self.state
         compiled = self.compiled()
-        grid = build_grid(compiled.params, specs, rule=s.rule)
-        self._check_cost(compiled, grid, force=force)
-        new = compute_posterior(compiled, grid, progress=progress)
+        widened: list[str] = []
+        for attempt in range(8):
+            grid = build_grid(compiled.params, specs, rule=s.rule)
+            self._check_cost(compiled, grid, force=force)
+            new = compute_posterior(compiled, grid, progress=progress)
+            # the region read off a coarse grid can be too tight: widen any end that
+            # now holds mass and compute again
+            wider, moved = widen_specs(new, specs, edge_mass=10 * EDGE_MASS_AUTO)
+            if not moved or attempt == 7:
+                break
+            specs = wider
+            widened.extend(moved)
+        if widened:
+            notes = notes + ("the zoomed grid held mass at its edge; widened at the "
+                             + ", ".join(sorted(set(widened))),)
         ns = replace(s, specs=specs, posterior=new, steps=())
         self._commit(replace(ns, basis=_basis(ns)))
         lines = "; ".join(a.describe() for a in grid.axes)
@@ -649,6 +663,7 @@ class Workspace:
             return s.posterior, ()
         what = "no posterior yet" if s.posterior is None else "the posterior is out of date"
         compiled = self.compiled()
+        self._check_count(s, compiled)
         grid, notes, _ = self._grid_for(s, compiled)
         c = plan.estimate(compiled, grid)
         if c.seconds > CHEAP_SECONDS or not c.fits:

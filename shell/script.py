@@ -110,6 +110,16 @@ def written_by_save(path: str) -> bool:
         return False
 
 
+def refuse_replayed_overwrite(app, full: str, shown: str, word=None) -> None:
+    """A session file being replayed may write new files, and files this session
+    wrote, but never overwrite another existing file, `force` or not: a file
+    someone sent must not be able to replace the user's data or sessions."""
+    if app.replaying and os.path.exists(full) and os.path.realpath(full) not in app.written:
+        raise ShellError(f"`{shown}` exists: a session file being replayed may write new "
+                         "files only, never over existing ones",
+                         word.column if word is not None else None)
+
+
 def save(app, path: str, *, force: bool = False, word=None) -> SaveReport:
     """Write the session atomically to `path` (never a half-written file).
 
@@ -120,6 +130,7 @@ def save(app, path: str, *, force: bool = False, word=None) -> SaveReport:
         raise ShellError(f"`{path}`: session files end in .qd",
                          word.column if word is not None else None)
     full = app.ws.resolve(path)
+    refuse_replayed_overwrite(app, full, path, word)
     if os.path.exists(full) and not force and os.path.realpath(full) not in app.written \
             and not written_by_save(full):
         raise ShellError(f"`{path}` exists and was not written by `save`; `save {path} force` "
@@ -157,7 +168,15 @@ def read_session(path: str, shown: str | None = None) -> list[str]:
         raise ShellError(f"`{shown}` line {line}: not UTF-8 text") from None
     if "\x00" in text:
         raise ShellError(f"`{shown}` holds NUL bytes; it is not a session file")
-    return text.splitlines()
+    return split_lines(text)
+
+
+def split_lines(text: str) -> list[str]:
+    """Lines end at \\n (after \\r\\n or a lone \\r) only: the other breaks that
+    `str.splitlines` knows (\\x85, \\u2028, form feeds) would hide a second command
+    inside what an editor shows as one line; left in, they are refused."""
+    lines = text.replace("\r\n", "\n").replace("\r", "\n").split("\n")
+    return lines[:-1] if lines and lines[-1] == "" else lines
 
 
 def data_checks(lines: list[str], shown: str = "the session file") -> list[DataCheck]:

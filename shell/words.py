@@ -144,7 +144,9 @@ def split_commands(text: str) -> list[str]:
     its line).
     """
     out: list[str] = []
-    for raw in text.splitlines() or [""]:
+    from .script import split_lines
+
+    for raw in split_lines(text) or [""]:
         cut = raw.find("#")
         body, comment = (raw, "") if cut < 0 else (raw[:cut], raw[cut:])
         parts = body.split(";")

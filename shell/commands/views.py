@@ -297,7 +297,10 @@ def _complete_export(words, text):
 
 
 def may_write(app, path: str, force: bool, word) -> None:
-    """Refuse to overwrite a file this session did not write, unless forced."""
+    """Refuse to overwrite a file this session did not write, unless forced (and
+    never from a session file being replayed)."""
+    from ..script import refuse_replayed_overwrite
+    refuse_replayed_overwrite(app, path, path, word)
     if force or not os.path.exists(path):
         return
     if os.path.realpath(path) in app.written:
