@@ -497,29 +497,7 @@ def parse(text: str, names: Mapping[str, sp.Expr], *, condition: bool = False) -
         One line naming the offending token and its column.
     """
     _check_text(text)
-    src, where = _translate(text)
-    limit = sys.getrecursionlimit()
-    try:
-        # a long flat sum is a deep tree for the parser; the text is bounded by
-        # MAX_LENGTH, so this bounded lift of the limit is safe
-        sys.setrecursionlimit(max(limit, 4 * MAX_LENGTH))
-        tree = _parse(src.lstrip())
-    except SyntaxError as exc:
-        shift = len(src) - len(src.lstrip())
-        off = (exc.offset or 1) - 1 + shift
-        col = where[min(max(off, 0), len(where) - 1)] + 1
-        raise FormulaError(_syntax_message(exc), col) from None
-    except (RecursionError, MemoryError, ValueError):
-        raise FormulaError("formula is too complex to read") from None
-    finally:
-        sys.setrecursionlimit(limit)
-    shift = len(src) - len(src.lstrip())
-    if shift:
-        for node in ast.walk(tree):
-            if hasattr(node, "col_offset"):
-                node.col_offset += shift
-                if getattr(node, "end_col_offset", None) is not None:
-                    node.end_col_offset += shift
+    tree, where = _read(text)
     builder = _Builder(names, where, condition, text)
     try:
         value = builder.build(tree)
@@ -535,6 +513,35 @@ def parse(text: str, names: Mapping[str, sp.Expr], *, condition: bool = False) -
     return value
 
 
+def _read(text: str) -> tuple[ast.Expression, list[int]]:
+    """Parse checked formula text into an ``ast`` tree whose columns point into
+    `text`; also the map from translated to original columns."""
+    src, where = _translate(text)
+    stripped = src.lstrip()
+    shift = len(src) - len(stripped)
+    limit = sys.getrecursionlimit()
+    try:
+        # a long flat sum is a deep tree for the parser; the text is bounded by
+        # MAX_LENGTH, so this bounded lift of the limit is safe
+        sys.setrecursionlimit(max(limit, 4 * MAX_LENGTH))
+        tree = _parse(stripped)
+    except SyntaxError as exc:
+        off = (exc.offset or 1) - 1 + shift
+        col = where[min(max(off, 0), len(where) - 1)] + 1
+        raise FormulaError(_syntax_message(exc), col) from None
+    except (RecursionError, MemoryError, ValueError):
+        raise FormulaError("formula is too complex to read") from None
+    finally:
+        sys.setrecursionlimit(limit)
+    if shift:
+        for node in ast.walk(tree):
+            if hasattr(node, "col_offset"):
+                node.col_offset += shift
+                if getattr(node, "end_col_offset", None) is not None:
+                    node.end_col_offset += shift
+    return tree, where
+
+
 def names_in(expr: sp.Basic) -> set[str]:
     """The names of the free symbols of `expr`."""
     return {s.name for s in expr.free_symbols}
@@ -547,27 +554,7 @@ def parse_call(text: str, names: Mapping[str, sp.Expr], known: Mapping[str, obje
     Returns the name and the sympy arguments. Errors name the column.
     """
     _check_text(text)
-    src, where = _translate(text)
-    stripped = src.lstrip()
-    shift = len(src) - len(stripped)
-    limit = sys.getrecursionlimit()
-    try:
-        sys.setrecursionlimit(max(limit, 4 * MAX_LENGTH))
-        tree = _parse(stripped)
-    except SyntaxError as exc:
-        off = (exc.offset or 1) - 1 + shift
-        col = where[min(max(off, 0), len(where) - 1)] + 1
-        raise FormulaError("cannot read the formula here", col) from None
-    except (RecursionError, MemoryError, ValueError):
-        raise FormulaError("formula is too complex to read") from None
-    finally:
-        sys.setrecursionlimit(limit)
-    if shift:
-        for node in ast.walk(tree):
-            if hasattr(node, "col_offset"):
-                node.col_offset += shift
-                if getattr(node, "end_col_offset", None) is not None:
-                    node.end_col_offset += shift
+    tree, where = _read(text)
     body = tree.body
     builder = _Builder(names, where, False, text)
     if not (isinstance(body, ast.Call) and isinstance(body.func, ast.Name)):

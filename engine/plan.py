@@ -239,6 +239,31 @@ def format_bytes(n: float) -> str:
     return f"{n:,.1f} PiB"
 
 
+def format_duration(s: float) -> str:
+    """Seconds as people read them: 40 ms, 3.2 s, 12.5 minutes, 300,000 years."""
+    if not math.isfinite(s):
+        return "forever"
+    if s < 1e-3:
+        return "under 1 ms"
+    if s < 1:
+        return f"{s * 1000:.0f} ms"
+    if s < 120:
+        return f"{s:.1f} s"
+    if s < 7200:
+        return f"{s / 60:.1f} minutes"
+    if s < 172800:
+        return f"{s / 3600:.1f} hours"
+    years = s / (365.25 * 86400)
+    if years < 1:
+        return f"{s / 86400:.1f} days"
+    if years < 100:
+        return f"{years:.3g} years"
+    if years < 1e15:
+        # two significant digits, written out: "300,000 years"
+        return f"{float(f'{years:.2g}'):,.0f} years"
+    return f"{years:.2g} years"
+
+
 def format_count(n: int) -> str:
     """A point count as people read it: 1,000 or 10^20 or 3.4 x 10^17."""
     n = int(n)

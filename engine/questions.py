@@ -159,8 +159,7 @@ class _Rel:
     op: str                     # "gt", "ge", "lt", "le", "eq", "ne"
 
 
-_OPS = {sp.StrictGreaterThan: "gt", sp.GreaterThan: "ge", sp.StrictLessThan: "lt",
-        sp.LessThan: "le", sp.Equality: "eq", sp.Unequality: "ne"}
+_OPS = regions.OPS
 
 
 def _relations(cond: sp.Basic, post: Posterior):
@@ -168,42 +167,31 @@ def _relations(cond: sp.Basic, post: Posterior):
     params = post.compiled.params
     rels: list[_Rel] = []
 
-    def build(c):
-        if c is sp.true or c == sp.true:
-            return ("const", True)
-        if c is sp.false or c == sp.false:
-            return ("const", False)
-        if isinstance(c, sp.And):
-            return ("and", [build(a) for a in c.args])
-        if isinstance(c, sp.Or):
-            return ("or", [build(a) for a in c.args])
-        if isinstance(c, sp.Not):
-            return ("not", build(c.args[0]))
-        if type(c) in _OPS:
-            s = c.lhs - c.rhs
-            op = _OPS[type(c)]
-            if op in ("eq", "ne"):
-                cont = [p.name for p in params if not p.discrete and p.symbol in s.free_symbols]
-                if cont:
-                    raise ComputeError(f"`==` and `!=` on continuous `{cont[0]}` have "
-                                       "probability 0 and 1; compare with < or > instead")
-            grads = []
-            for p in params:
-                if p.discrete or p.symbol not in s.free_symbols:
-                    grads.append(None)
-                    continue
-                try:
-                    g = sp.diff(s, p.symbol)
-                    if g.has(sp.Derivative):
-                        raise ValueError
-                    grads.append(param_function(g, params))
-                except (ValueError, TypeError, NotImplementedError):
-                    grads.append(None)
-            rels.append(_Rel(param_function(s, params), tuple(grads), op))
-            return ("rel", len(rels) - 1)
-        raise ComputeError(f"`{c}` is not a condition quadrat can judge")
+    def relation(s, op):
+        if op in ("eq", "ne"):
+            cont = [p.name for p in params if not p.discrete and p.symbol in s.free_symbols]
+            if cont:
+                raise ComputeError(f"`==` and `!=` on continuous `{cont[0]}` have "
+                                   "probability 0 and 1; compare with < or > instead")
+        grads = []
+        for p in params:
+            if p.discrete or p.symbol not in s.free_symbols:
+                grads.append(None)
+                continue
+            try:
+                g = sp.diff(s, p.symbol)
+                if g.has(sp.Derivative):
+                    raise ValueError
+                grads.append(param_function(g, params))
+            except (ValueError, TypeError, NotImplementedError):
+                grads.append(None)
+        rels.append(_Rel(param_function(s, params), tuple(grads), op))
+        return ("rel", len(rels) - 1)
 
-    return build(cond), rels
+    tree = regions.boolean_tree(cond, relation)
+    if tree is None:
+        raise ComputeError(f"`{cond}` is not a condition quadrat can judge")
+    return tree, rels
 
 
 def _fraction(rel: _Rel, theta, half: list[np.ndarray]) -> np.ndarray:

@@ -37,7 +37,7 @@ GREGORY = (1 / 12, 1 / 24, 19 / 720, 3 / 160, 863 / 60480)
 MAX_SEPARABLE = 6
 #: Lines evaluated together (bounds the memory of a chunk).
 CHUNK_POINTS = 1 << 18
-_OPS = {sp.StrictGreaterThan: "gt", sp.GreaterThan: "ge", sp.StrictLessThan: "lt",
+OPS = {sp.StrictGreaterThan: "gt", sp.GreaterThan: "ge", sp.StrictLessThan: "lt",
         sp.LessThan: "le", sp.Equality: "eq", sp.Unequality: "ne"}
 
 
@@ -153,38 +153,45 @@ def _truth(op: str, s: np.ndarray) -> np.ndarray:
     return s != 0
 
 
+def boolean_tree(cond: sp.Basic, relation):
+    """The and / or / not skeleton of `cond` as nested tuples; each comparison
+    becomes ``relation(lhs - rhs, op)``, which returns a leaf or None (refused).
+    None when any part is refused or is not a condition."""
+    tree = _tree(cond, relation)
+    return None if _has_none(tree) else tree
+
+
+def _tree(cond: sp.Basic, relation):
+    if cond is sp.true or cond == sp.true:
+        return ("const", True)
+    if cond is sp.false or cond == sp.false:
+        return ("const", False)
+    if isinstance(cond, (sp.And, sp.Or)):
+        return ("and" if isinstance(cond, sp.And) else "or",
+                [_tree(a, relation) for a in cond.args])
+    if isinstance(cond, sp.Not):
+        return ("not", _tree(cond.args[0], relation))
+    if type(cond) in OPS:
+        return relation(cond.lhs - cond.rhs, OPS[type(cond)])
+    return None
+
+
 def _parse(cond: sp.Basic, post: Posterior):
     params = post.compiled.params
     axes = post.grid.axes
     rels: list[_Relation] = []
 
-    def build(c):
-        if c is sp.true or c == sp.true:
-            return ("const", True)
-        if c is sp.false or c == sp.false:
-            return ("const", False)
-        if isinstance(c, sp.And):
-            return ("and", [build(a) for a in c.args])
-        if isinstance(c, sp.Or):
-            return ("or", [build(a) for a in c.args])
-        if isinstance(c, sp.Not):
-            return ("not", build(c.args[0]))
-        if type(c) in _OPS:
-            s = c.lhs - c.rhs
-            op = _OPS[type(c)]
-            used = [k for k, p in enumerate(params) if p.symbol in s.free_symbols]
-            cont = frozenset(k for k in used if not axes[k].discrete)
-            disc = frozenset(k for k in used if axes[k].discrete)
-            if op in ("eq", "ne") and cont:
-                return None
-            rels.append(_Relation(param_function(s, params), op, cont, disc))
-            return ("rel", len(rels) - 1)
-        return None
+    def relation(s, op):
+        used = [k for k, p in enumerate(params) if p.symbol in s.free_symbols]
+        cont = frozenset(k for k in used if not axes[k].discrete)
+        disc = frozenset(k for k in used if axes[k].discrete)
+        if op in ("eq", "ne") and cont:
+            return None
+        rels.append(_Relation(param_function(s, params), op, cont, disc))
+        return ("rel", len(rels) - 1)
 
-    tree = build(cond)
-    if tree is None or _has_none(tree):
-        return None
-    return tree, rels
+    tree = boolean_tree(cond, relation)
+    return None if tree is None else (tree, rels)
 
 
 def _has_none(tree) -> bool:

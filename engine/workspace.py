@@ -286,14 +286,9 @@ class Workspace:
     def prior(self, name: str, text: str) -> Change:
         s = self.state
         s.model.param(name)
-        fname, args = parse_call(text, self._names(), fam.FAMILIES)
-        f = fam.get(fname)
-        if len(args) != len(f.params):
-            raise ModelError(f"`{fname}` takes {len(f.params)} argument"
-                             f"{'s' if len(f.params) != 1 else ''} ({', '.join(f.params)}), "
-                             f"got {len(args)}")
+        f, args = _family_call(text, self._names())
+        fname = f.name
         self._no_data(args, f"prior of `{name}`")
-        fam.check_constant_args(f, args)
         pr = Prior(name, fname, args, None, text.strip())
         model, replaced = s.model.with_prior(pr)
         compile_model(replace(model, likelihoods=()), DataSet())
@@ -326,13 +321,8 @@ class Workspace:
                              "or `data load FILE.csv`")
         if censor is not None and censor not in s.data:
             raise ModelError(f"no data column `{censor}` for the censoring flags")
-        fname, args = parse_call(text, self._names(), fam.FAMILIES)
-        f = fam.get(fname)
-        if len(args) != len(f.params):
-            raise ModelError(f"`{fname}` takes {len(f.params)} argument"
-                             f"{'s' if len(f.params) != 1 else ''} ({', '.join(f.params)}), "
-                             f"got {len(args)}")
-        fam.check_constant_args(f, args)
+        f, args = _family_call(text, self._names())
+        fname = f.name
         if censor is not None and f.logsf is None:
             raise ModelError(f"`{fname}` has no survival function; it cannot take censored rows")
         lk = Likelihood(column, fname, args, censor, None, text.strip())
@@ -768,27 +758,25 @@ class Workspace:
                                f"sd {pr.name}, quantile {pr.name} Q)")
         return pr
 
-    def _mean(self, text: str) -> Answer:
+    def _moment(self, kind: str, text: str) -> Answer:
+        """`mean` or `sd` of an expression, or of a predicted observation."""
         e = self._expr(text)
         pr = self._pred_only(e)
         if pr is not None:
             pv, notes = self._predictive(pr)
-            return Answer("mean", f"mean of a new {pr.name}", (pv.mean,), (None,), notes, pv)
+            value = pv.mean if kind == "mean" else pv.sd
+            return Answer(kind, f"{kind} of a new {pr.name}", (value,), (None,), notes, pv)
         post, notes = self.posterior()
         mo = questions.moments(post, e)
-        return Answer("mean", f"mean of {text.strip()}", (float(mo.mean.value),),
-                      (mo.mean.error,), notes, mo)
+        est = mo.mean if kind == "mean" else mo.sd
+        return Answer(kind, f"{kind} of {text.strip()}", (float(est.value),), (est.error,),
+                      notes, mo)
+
+    def _mean(self, text: str) -> Answer:
+        return self._moment("mean", text)
 
     def _sd(self, text: str) -> Answer:
-        e = self._expr(text)
-        pr = self._pred_only(e)
-        if pr is not None:
-            pv, notes = self._predictive(pr)
-            return Answer("sd", f"sd of a new {pr.name}", (pv.sd,), (None,), notes, pv)
-        post, notes = self.posterior()
-        mo = questions.moments(post, e)
-        return Answer("sd", f"sd of {text.strip()}", (float(mo.sd.value),), (mo.sd.error,),
-                      notes, mo)
+        return self._moment("sd", text)
 
     def _quantile(self, text: str, q: float) -> Answer:
         e = self._expr(text)
@@ -1078,13 +1066,8 @@ class Workspace:
         if cols:
             raise ModelError(f"predict: `{sorted(cols)[0]}` is a data column; give the new "
                              "row's values as numbers")
-        f = fam.get(fname)
-        if len(args) != len(f.params):
-            raise ModelError(f"`{fname}` takes {len(f.params)} argument"
-                             f"{'s' if len(f.params) != 1 else ''} ({', '.join(f.params)}), "
-                             f"got {len(args)}")
-        fam.check_constant_args(f, args)
-        pr = Prediction(name, fname, args, text.strip())
+        f, args = _family_call(text, names)
+        pr = Prediction(name, f.name, args, text.strip())
         ans = self._ask(self._pred_answer, pr)
         preds = tuple(p for p in s.predictions if p.name != name) + (pr,)
         new = replace(self.state, predictions=preds)
@@ -1135,9 +1118,8 @@ class Workspace:
                 raise ModelError(str(exc)) from None
             names = {p.name: p.symbol for p in s.model.params}
             names.update({l_.name: sp.Symbol(l_.name, real=True) for l_ in s.model.lets})
-            fname, args = parse_call(rest, names, fam.FAMILIES)
-            fam.check_constant_args(fam.get(fname), args)
-            use = (col, fname, args)
+            f, args = _family_call(rest, names)
+            use = (col, f.name, args)
         post, notes = self.posterior()
         res = sample_size(post, s.model, name, width, level=level, max_n=max_n, using=use,
                           data=s.data, sims=sims, seed=seed, kind=kind, progress=progress)
@@ -1153,6 +1135,19 @@ class Workspace:
     def reset(self) -> Change:
         self._commit(State())
         return Change("reset: model, data, grid and posterior cleared (`undo` brings them back)")
+
+
+def _family_call(text: str, names) -> tuple[fam.Family, tuple]:
+    """``FAMILY(args)`` parsed, with the argument count and constant arguments
+    checked against the family."""
+    fname, args = parse_call(text, names, fam.FAMILIES)
+    f = fam.get(fname)
+    if len(args) != len(f.params):
+        raise ModelError(f"`{fname}` takes {len(f.params)} argument"
+                         f"{'s' if len(f.params) != 1 else ''} ({', '.join(f.params)}), "
+                         f"got {len(args)}")
+    fam.check_constant_args(f, args)
+    return f, args
 
 
 _REL = {sp.StrictLessThan: "<", sp.LessThan: "<=", sp.StrictGreaterThan: ">",
@@ -1195,26 +1190,5 @@ def _predictive_prob(pv, cond, name: str) -> float:
     return max(p_hi - p_lo, 0.0)
 
 
-def _bytes(n: float) -> str:
-    for unit in ("bytes", "KiB", "MiB", "GiB", "TiB", "PiB", "EiB"):
-        if abs(n) < 1024 or unit == "EiB":
-            return f"{n:,.0f} {unit}" if unit == "bytes" else f"{n:,.1f} {unit}"
-        n /= 1024
-    return f"{n:.3g} EiB"
-
-
-def _duration(s: float) -> str:
-    if not math.isfinite(s):
-        return "forever"
-    if s < 1:
-        return f"{s * 1000:.0f} ms"
-    if s < 120:
-        return f"{s:.1f} s"
-    if s < 7200:
-        return f"{s / 60:.1f} minutes"
-    if s < 172800:
-        return f"{s / 3600:.1f} hours"
-    years = s / (365.25 * 86400)
-    if years < 1:
-        return f"{s / 86400:.1f} days"
-    return f"{years:.3g} years"
+_bytes = plan.format_bytes
+_duration = plan.format_duration

@@ -12,6 +12,8 @@ from __future__ import annotations
 import math
 from typing import Sequence
 
+from engine.plan import format_bytes, format_duration
+
 DIGITS = 6
 
 
@@ -58,36 +60,9 @@ def count(n: int) -> str:
     return f"{n:,}"
 
 
-def bytes_text(n: float) -> str:
-    for unit in ("bytes", "KiB", "MiB", "GiB", "TiB", "PiB"):
-        if abs(n) < 1024 or unit == "PiB":
-            return f"{n:,.0f} {unit}" if unit == "bytes" else f"{n:,.1f} {unit}"
-        n /= 1024
-    return f"{n:.3g} PiB"
-
-
-def duration(s: float) -> str:
-    if not math.isfinite(s):
-        return "forever"
-    if s < 1e-3:
-        return "under 1 ms"
-    if s < 1:
-        return f"{s * 1000:.0f} ms"
-    if s < 120:
-        return f"{s:.1f} s"
-    if s < 7200:
-        return f"{s / 60:.1f} minutes"
-    if s < 172800:
-        return f"{s / 3600:.1f} hours"
-    years = s / (365.25 * 86400)
-    if years < 1:
-        return f"{s / 86400:.1f} days"
-    if years < 100:
-        return f"{years:.3g} years"
-    if years < 1e15:
-        # two significant digits, written out: "300,000 years"
-        return f"{float(f'{years:.2g}'):,.0f} years"
-    return f"{num(years, 2)} years"
+#: Bytes and seconds are written the way the engine's own messages write them.
+bytes_text = format_bytes
+duration = format_duration
 
 
 # ---------------------------------------------------------------------------
