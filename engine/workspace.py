@@ -371,8 +371,27 @@ class Workspace:
         names.pop(name, None)
         e = parse(text, names)
         model, replaced = s.model.with_let(Let(name, e, text.strip()), s.data)
-        self._commit(replace(s, model=model))
+        new = replace(s, model=model)
+        if not _density_reads(s.model, name):
+            # a derived quantity the priors and likelihoods do not use leaves the
+            # posterior as it is: it stays current, under the new model
+            new = self._keep_posterior(s, new)
+        self._commit(new)
         return Change(f"let `{name}` {'replaced' if replaced else 'set'}: {name} = {text.strip()}")
+
+    def _keep_posterior(self, old: State, new: State) -> State:
+        """`new` (whose density is the same as `old`'s) with `old`'s posterior, still
+        current, its compiled form carrying the new model."""
+        post = old.posterior
+        if post is None or old.basis != _basis(old):
+            return new
+        compiled = replace(post.compiled, model=new.model)
+        new = replace(new, posterior=replace(post, compiled=compiled))
+        if self._compiled_cache is not None and self._compiled_cache[0] == (id(old.model),
+                                                                            id(old.data)):
+            self._compiled_cache = ((id(new.model), id(new.data)), compiled, new.model,
+                                    new.data)
+        return replace(new, basis=_basis(new))
 
     # -- data -----------------------------------------------------------------
     def data_typed(self, name: str, texts: list[str]) -> Change:
@@ -1135,6 +1154,26 @@ class Workspace:
     def reset(self) -> Change:
         self._commit(State())
         return Change("reset: model, data, grid and posterior cleared (`undo` brings them back)")
+
+
+def _density_reads(model: Model, name: str) -> bool:
+    """Whether the priors or likelihoods of `model` read let `name` (directly or
+    through other lets)."""
+    sym = sp.Symbol(name, real=True)
+    from .model import expand_lets
+    exprs = [a for pr in model.priors for a in pr.args] + \
+        [pr.log for pr in model.priors if pr.log is not None] + \
+        [a for lk in model.likelihoods for a in lk.args] + \
+        [lk.log for lk in model.likelihoods if lk.log is not None]
+    for e in exprs:
+        if e.has(sym):
+            return True
+        # through another let that reads it
+        for l_ in model.lets:
+            if e.has(sp.Symbol(l_.name, real=True)) and l_.name != name and \
+                    expand_lets(sp.Symbol(l_.name, real=True), model).has(sym):
+                return True
+    return False
 
 
 def _family_call(text: str, names) -> tuple[fam.Family, tuple]:

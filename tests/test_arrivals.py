@@ -270,3 +270,22 @@ def test_whatif_question_about_a_name_declared_in_the_layer():
     assert ans.values[0] == pytest.approx(4 / 3, abs=1e-6)
     assert abs(ans.values[0] - 4 / 3) <= ans.errors[0] + 1e-12
     w.whatif_end()
+
+
+def test_a_let_keeps_the_posterior_unless_the_density_reads_it():
+    # a derived quantity asked about needs no new computation; one the likelihood
+    # reads does. E[p/(1-p)] under beta(4, 4) is 4/3 (a/(b-1), common practice)
+    w = bernoulli_ws([1, 0, 1])
+    w.compute()
+    post = w.state.posterior
+    w.let("odds", "p / (1 - p)")
+    assert w.status().posterior == "current" and w.state.posterior.logp is post.logp
+    assert w.mean("odds").values[0] == pytest.approx(4 / 3, abs=1e-6)
+    w2 = Workspace()
+    w2.param("p", "unit")
+    w2.let("q", "p")
+    w2.data_typed("k", ["1", "0"])
+    w2.likelihood("k", "bernoulli(q)")
+    w2.compute()
+    w2.let("q", "p * 0.5")
+    assert w2.status().posterior == "out of date"
