@@ -795,10 +795,36 @@ def _reduce_sum(expr, conds, psyms, csyms, colvals):
         elif len(mixed) == 1 and isinstance(mixed[0], (S.xlogy, S.xlog1py)) and not dpart:
             # sum_i xlogy(a_i, b) = xlogy(sum_i a_i, b) when every a_i >= 0
             a, b = mixed[0].args
+            fn = type(mixed[0])
             if a.free_symbols <= dset and not (b.free_symbols & dset):
                 v = data_values(a)
                 if np.all(np.isfinite(v)) and np.all(v >= 0):
-                    extra.append(sp.Mul(*ppart) * type(mixed[0])(stat(math.fsum(v), "sum+", a), b))
+                    extra.append(sp.Mul(*ppart) * fn(stat(math.fsum(v), "sum+", a), b))
+                    continue
+            elif fn is S.xlogy and a.free_symbols <= dset and b.is_Mul:
+                # xlogy(a, b_theta * b_data) = xlogy(a, b_theta) + a log(b_data) where
+                # b_data > 0 and a >= 0 on every row (a rate times an exposure)
+                bp = sp.Mul(*[f_ for f_ in b.args if not (f_.free_symbols & dset)])
+                bd = sp.Mul(*[f_ for f_ in b.args if f_.free_symbols & dset])
+                if not (bd.free_symbols & pset) and bp != 1:
+                    va, vb = data_values(a), data_values(bd)
+                    if np.all(np.isfinite(va)) and np.all(va >= 0) and \
+                            np.all(np.isfinite(vb)) and np.all(vb > 0):
+                        extra.append(sp.Mul(*ppart) * fn(stat(math.fsum(va), "sum+", a), bp))
+                        grouped.setdefault(sp.Mul(*ppart), []).append(
+                            stat(math.fsum(va * np.log(vb)), "sum", a * sp.log(bd)))
+                        continue
+            elif not (a.free_symbols & dset) and b.free_symbols <= dset:
+                # xlogy(a_theta, b) = a_theta log(b) where b > 0 on every row (and
+                # xlog1py(a_theta, b) = a_theta log1p(b) where b > -1): a shape parameter
+                vb = data_values(b)
+                ok = np.all(np.isfinite(vb)) and (np.all(vb > 0) if fn is S.xlogy
+                                                  else np.all(vb > -1))
+                if ok:
+                    logs = np.log(vb) if fn is S.xlogy else np.log1p(vb)
+                    e = sp.log(b) if fn is S.xlogy else S.log1p(b)
+                    grouped.setdefault(sp.Mul(*ppart) * a, []).append(
+                        stat(math.fsum(logs), "sum", e))
                     continue
         remainder.append(term)
     red_conds, rem_conds = [], []
@@ -807,6 +833,17 @@ def _reduce_sum(expr, conds, psyms, csyms, colvals):
             rem_conds.append(c)
             continue
         lhs, rhs = c.lhs, c.rhs
+        if rhs == 0 and lhs.is_Mul and lhs.free_symbols & dset and lhs.free_symbols & pset:
+            # theta_part * data_part OP 0 with the data part > 0 on every row is
+            # theta_part * min(data part) OP 0 (a rate times an exposure >= 0)
+            tp_ = sp.Mul(*[f_ for f_ in lhs.args if not (f_.free_symbols & dset)])
+            dp_ = sp.Mul(*[f_ for f_ in lhs.args if f_.free_symbols & dset])
+            if not (dp_.free_symbols & pset):
+                v = data_values(dp_)
+                if np.all(np.isfinite(v)) and np.all(v > 0):
+                    s = stat(float(np.min(v)), "min", dp_)
+                    red_conds.append(c.func(tp_ * s, 0))
+                    continue
         ld, rd = lhs.free_symbols <= dset, rhs.free_symbols <= dset
         lp, rp = not (lhs.free_symbols & dset), not (rhs.free_symbols & dset)
         if ld and rp:

@@ -464,3 +464,53 @@ def test_typed_values_in_the_usual_notations():
     from engine.data import typed_column
     got = typed_column("y", ["3", "-.5", "+1E+3", "2.", " 7 "])
     assert list(got) == [3.0, -0.5, 1000.0, 2.0, 7.0]
+
+
+# ---------------------------------------------------------------------------
+# reductions that need a sign of the data: exposures and shape parameters
+
+def _workspace_with(columns: dict, params: list, likelihood: tuple):
+    from engine.workspace import Workspace
+    w = Workspace()
+    for name, kind in params:
+        w.param(name, kind)
+    for name, values in columns.items():
+        w.data_typed(name, [repr(float(v)) for v in values])
+    w.likelihood(*likelihood)
+    return w.compiled()
+
+
+def _no_rows(compiled):
+    from engine.model import RowTerm
+    return not any(isinstance(t, RowTerm) for part in compiled.likelihood for t in part.terms)
+
+
+def test_poisson_with_an_exposure_reduces_to_statistics():
+    # counts over exposures: the sum is rate-only up to sum(y log t) (scipy.stats.poisson)
+    y, t = np.array([3, 0, 5, 2, 7]), np.array([1.5, 0.5, 2.0, 1.0, 3.2])
+    c = _workspace_with({"y": y, "t": t}, [("rate", "real")], ("y", "poisson(rate*t)"))
+    assert _no_rows(c)
+    r = np.linspace(-1.0, 6.0, 29)
+    got = c.log_likelihood([r])
+    ref = np.array([st.poisson(x * t).logpmf(y).sum() if x >= 0 else -np.inf for x in r])
+    assert np.array_equal(np.isfinite(got), np.isfinite(ref))
+    fin = np.isfinite(ref)
+    assert np.max(np.abs(got[fin] - ref[fin])) < 1e-9
+
+
+@pytest.mark.parametrize("family,draw,ref", [
+    ("gamma(a, b)", lambda rng: rng.gamma(2.5, 1 / 1.5, 40),
+     lambda a, b, y: st.gamma(a, scale=1 / b).logpdf(y).sum()),
+    ("beta(a, b)", lambda rng: rng.beta(2.0, 3.0, 40),
+     lambda a, b, y: st.beta(a, b).logpdf(y).sum()),
+])
+def test_shape_parameters_reduce_to_statistics(family, draw, ref):
+    # (a - 1) sum(log y) and (b - 1) sum(log(1 - y)): references from scipy.stats
+    rng = np.random.default_rng(4)
+    y = draw(rng)
+    c = _workspace_with({"y": y}, [("a", "positive"), ("b", "positive")], ("y", family))
+    assert _no_rows(c)
+    A, B = rng.uniform(0.5, 5, 60), rng.uniform(0.3, 4, 60)
+    got = c.log_likelihood([A, B])
+    want = np.array([ref(a, b, y) for a, b in zip(A, B)])
+    assert np.max(np.abs(got - want)) < 1e-9
