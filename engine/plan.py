@@ -103,7 +103,7 @@ def memory_for(grid_points: int, axis_lengths: list[int], pairs: int = 0, *,
 
 def _sub_grid(grid: Grid, target: int) -> Grid:
     """A grid over the same bounds, scales and rules with about `target` points."""
-    from .grid import Axis, make_axis
+    from .grid import make_axis
     from .model import Param
     cont = [a for a in grid.axes if not a.discrete]
     fixed = math.prod(a.n for a in grid.axes if a.discrete)

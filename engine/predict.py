@@ -22,10 +22,9 @@ from scipy import optimize
 from . import families as fam
 from .data import Column, DataSet
 from .errors import ComputeError, ModelError
-from .grid import Grid
-from .model import (Compiled, Likelihood, Model, ReducedTerm, RowTerm, compile_model,
+from .model import (Likelihood, Model, ReducedTerm, RowTerm, compile_model,
                     expand_lets, param_function)
-from .posterior import Marginal, Posterior, evaluate_block
+from .posterior import Marginal, Posterior
 from .questions import walk
 
 #: The predictive mixes over the grid points holding all but this much mass.

@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import math
 import warnings
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import Sequence
 
 import numpy as np
@@ -18,7 +18,7 @@ import scipy.special as sc
 from scipy import optimize
 
 from .errors import ComputeError, GridError
-from .grid import DEFAULT_POINTS, MAX_AXIS_POINTS, Axis, Grid, default_scale, make_axis
+from .grid import DEFAULT_POINTS, MAX_AXIS_POINTS, Axis, Grid, make_axis
 from .model import Compiled, Param
 from .posterior import Posterior, compute, evaluate_block
 
@@ -330,7 +330,6 @@ def auto_grid(compiled: Compiled, *, points: dict[str, int] | None = None,
     params = compiled.params
     disc = [p for p in params if p.discrete]
     cont = [p for p in params if not p.discrete]
-    dims = len(params)
     if 3 ** len(cont) * math.prod(len(p.values) for p in disc) > 25 * CHECK_POINTS:
         raise ComputeError(
             f"grid auto: {len(cont)} continuous parameters; even 3 points per axis make "
@@ -387,7 +386,6 @@ def auto_grid(compiled: Compiled, *, points: dict[str, int] | None = None,
         return {k: v + (1 - v % 2) for k, v in want.items()}
 
     grow = {p.name: [0, 0] for p in cont}
-    history: dict[str, list[tuple[float, float]]] = {p.name: [] for p in cont}
     edge = {}
     widenings = 0
     improper: list[str] = []
@@ -404,7 +402,6 @@ def auto_grid(compiled: Compiled, *, points: dict[str, int] | None = None,
         for p in cont:
             a = grid.axis(p.name)
             m_lo, m_hi = edge[p.name]
-            history[p.name].append((m_lo, m_hi))
             span = hi_u[p.name] - lo_u[p.name]
             at_lo = a.scale == "linear" and a.lo <= p.lo
             at_hi = a.scale == "linear" and a.hi >= p.hi

@@ -93,39 +93,47 @@ class Line1D:
         c = np.cumsum(f, axis=1) - 0.5 * f - 0.5 * f[:, :1]
         return self.h * c
 
-    def F(self, f: np.ndarray, C: np.ndarray, rows: np.ndarray, cell: np.ndarray,
-          x: np.ndarray) -> np.ndarray:
-        """Integral from u[0] to x (x in cell `cell`, 0 <= cell <= n-2) of row `rows`."""
+    def corrections(self, cell: np.ndarray, x: np.ndarray):
+        """The node indices and weights (each of shape (m,)) that, added to the
+        trapezoid sum up to node `cell`, give the integral up to x: Gregory's
+        correction at the node, then the local quintic from the node to x."""
         n, h = self.n, self.h
-        i = cell
-        out = C[rows, i].copy()
-        # Gregory's correction at node i (nodes i-5 .. i)
+        i = np.asarray(cell)
         gi = np.minimum(i, 5)
-        base = i - 5
         for k in range(6):
-            j = base + k
-            ok = j >= 0
-            w = _GREG[gi, k]
-            out[ok] += h * w[ok] * f[rows[ok], j[ok]]
-        # the local quintic through the six nodes around the cell, from u_i to x
+            # Gregory's correction at node i (nodes i-5 .. i; absent before node 0)
+            j = i - 5 + k
+            yield np.maximum(j, 0), np.where(j >= 0, h * _GREG[gi, k], 0.0)
+        # the local quintic through the six nodes around the cell
         s0 = np.clip(i - 2, 0, n - 6)
         ta = (self.u[i] - self.u[s0]) / h
         tb = (x - self.u[s0]) / h
         for m in range(6):
-            w = np.polyval(_ANTI[m], tb) - np.polyval(_ANTI[m], ta)
-            out += h * w * f[rows, s0 + m]
+            yield s0 + m, h * (np.polyval(_ANTI[m], tb) - np.polyval(_ANTI[m], ta))
+
+    def F(self, f: np.ndarray, C: np.ndarray, rows: np.ndarray, cell: np.ndarray,
+          x: np.ndarray) -> np.ndarray:
+        """Integral from u[0] to x (x in cell `cell`, 0 <= cell <= n-2) of row `rows`."""
+        out = C[rows, cell].copy()
+        for j, w in self.corrections(cell, x):
+            out += w * f[rows, j]
         return out
 
     def total(self, C: np.ndarray) -> np.ndarray:
         return C[:, -1]
 
     def weights_F(self, x: float) -> np.ndarray:
-        """The weight vector c with integral from u[0] to x = c . f."""
-        f = np.eye(self.n)
-        C = self.trapezoid_cumulative(f)
-        i = int(np.clip(np.searchsorted(self.u, x, side="right") - 1, 0, self.n - 2))
-        rows = np.arange(self.n)
-        return self.F(f, C, rows, np.full(self.n, i), np.full(self.n, float(x)))
+        """The weight vector c with integral from u[0] to x = c . f (O(n), the same
+        rule as `F`)."""
+        n, h = self.n, self.h
+        i = int(np.clip(np.searchsorted(self.u, x, side="right") - 1, 0, n - 2))
+        c = np.zeros(n)
+        if i > 0:
+            c[: i + 1] = h
+            c[0] = c[i] = h / 2
+        for j, w in self.corrections(np.array([i]), np.array([float(x)])):
+            c[j[0]] += w[0]
+        return c
 
 
 # ---------------------------------------------------------------------------
@@ -354,7 +362,6 @@ def _level_selection(a: Axis, lev: int) -> np.ndarray:
 def _level_probability(post: Posterior, tree, rels, k: int, sep: list[int], lev: int):
     grid = post.grid
     axes = grid.axes
-    params = post.compiled.params
     sel = [_level_selection(a, lev) for a in axes]
     if len(sel[k]) < 8:
         return None
@@ -477,7 +484,6 @@ def _level_probability(post: Posterior, tree, rels, k: int, sep: list[int], lev:
     th_mid = theta_for(seg_rows, vals_k(seg_mid))
     truth_along = {i: _truth(rels[i].op, rels[i].s(th_mid)) for i in along}
     num = 0.0
-    sep_axes = sorted(per_axis_rel)
     if not sep:
         ok = np.asarray(_judge(tree, truth_along), bool) & np.ones(len(seg_rows), bool)
         num = float(np.dot(full_fac[seg_rows], np.where(ok, seg_int, 0.0)))

@@ -25,7 +25,7 @@ from .expr import check_name, parse, parse_call
 from .grid import Grid, make_axis
 from .model import Compiled, Let, Likelihood, Model, Prior, compile_model, make_param
 from .posterior import Estimate, Interval, Posterior, compute as compute_posterior
-from .refine import (AutoGrid, AxisSpec, RefineResult, RefineStep, auto_grid, axis_count,
+from .refine import (AutoGrid, AxisSpec, RefineStep, auto_grid, axis_count,
                      build_grid,
                      refine as refine_posterior, refined_grid, widen_specs, zoom_specs)
 from .rules import RULES

@@ -14,6 +14,16 @@ def say(app, change: Change) -> None:
         app.printer.note(n)
 
 
+def with_progress(app, call, *args, **kwargs):
+    """Run ``call(*args, progress=bar, **kwargs)`` with the printer's progress bar,
+    closing the bar whatever happens (Ctrl-C included)."""
+    bar = app.printer.progress()
+    try:
+        return call(*args, progress=bar, **kwargs)
+    finally:
+        bar.close()
+
+
 def notes(app, items) -> None:
     for n in items:
         app.printer.note(n)

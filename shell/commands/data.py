@@ -8,7 +8,7 @@ import re
 from ..registry import NOTHING, Slot, command
 from ..replies import DataFile, Reply
 from ..words import Line, ShellError, path_word
-from .common import say
+from .common import say, with_progress
 
 DATA_USAGE = "data [append] NAME = v1, v2, ...  or  data load | append FILE.csv [as PREFIX]"
 APPEND_USAGE = "data append NAME = v1, v2, ...  or  data append FILE.csv [as PREFIX]"
@@ -73,28 +73,30 @@ def data(app, line: Line):
                          f"{DATA_USAGE}", w[1].end + 1)
     if len(w) < 3:
         raise ShellError("`data load` needs a file name", line.end_column())
+    path, prefix = _file_and_prefix(line, DATA_USAGE)
+    say(app, app.ws.data_load(path, prefix))
+    return _file_reply(app.ws, path)
+
+
+def _file_and_prefix(line: Line, usage: str) -> tuple[str, str | None]:
+    """``FILE [as PREFIX]`` from the third word of `line` on."""
+    w = line.words
     path = path_word(w[2])
-    prefix = None
-    if len(w) > 3:
-        if w[3].text != "as":
-            raise ShellError(f"unexpected `{w[3].text}`; usage: {DATA_USAGE}", w[3].column)
-        if len(w) < 5:
-            raise ShellError("`as` needs a prefix", line.end_column())
-        if len(w) > 5:
-            raise ShellError(f"unexpected `{w[5].text}`", w[5].column)
-        prefix = w[4].text
-    ws = app.ws
-    say(app, ws.data_load(path, prefix))
+    if len(w) == 3:
+        return path, None
+    if w[3].text != "as":
+        raise ShellError(f"unexpected `{w[3].text}`; usage: {usage}", w[3].column)
+    if len(w) < 5:
+        raise ShellError("`as` needs a prefix", line.end_column())
+    if len(w) > 5:
+        raise ShellError(f"unexpected `{w[5].text}`", w[5].column)
+    return path, w[4].text
+
+
+def _file_reply(ws, path: str) -> Reply:
+    """The reply that records the data file just read (its checksum goes into `save`)."""
     record = ws.state.data.files[-1]
     return Reply(data_file=DataFile(path, os.path.abspath(ws.resolve(path)), record.sha256))
-
-
-def _progress_call(app, call, *args, **kwargs):
-    bar = app.printer.progress()
-    try:
-        return call(*args, progress=bar, **kwargs)
-    finally:
-        bar.close()
 
 
 def _append(app, line: Line):
@@ -113,22 +115,12 @@ def _append(app, line: Line):
         if name not in ws.state.data:
             raise ShellError(f"no data column `{name}` to append to; `data {name} = ...` "
                              "gives a new one", seg.column)
-        say(app, _progress_call(app, ws.data_append, name, values))
+        say(app, with_progress(app, ws.data_append, name, values))
         return None
     w = line.words
     if w[2].text in ws.state.data:
         raise ShellError(f"expected `=` after `{w[2].text}`; usage: {APPEND_USAGE}",
                          w[2].end + 1)
-    path = path_word(w[2])
-    prefix = None
-    if len(w) > 3:
-        if w[3].text != "as":
-            raise ShellError(f"unexpected `{w[3].text}`; usage: {APPEND_USAGE}", w[3].column)
-        if len(w) < 5:
-            raise ShellError("`as` needs a prefix", line.end_column())
-        if len(w) > 5:
-            raise ShellError(f"unexpected `{w[5].text}`", w[5].column)
-        prefix = w[4].text
-    say(app, _progress_call(app, ws.data_append_file, path, prefix))
-    record = ws.state.data.files[-1]
-    return Reply(data_file=DataFile(path, os.path.abspath(ws.resolve(path)), record.sha256))
+    path, prefix = _file_and_prefix(line, APPEND_USAGE)
+    say(app, with_progress(app, ws.data_append_file, path, prefix))
+    return _file_reply(ws, path)

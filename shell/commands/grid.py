@@ -9,7 +9,7 @@ from engine.rules import RULE_HELP, RULES
 from .. import render as R
 from ..registry import NOTHING, Slot, command
 from ..words import Line, ShellError, number, whole
-from .common import notes, say
+from .common import notes, say, with_progress
 
 #: `compute` refuses grids of this many points even when forced (the engine's
 #: limit in `Workspace._check_cost`: point indices must fit in 64 bits).
@@ -149,11 +149,7 @@ def compute(app, line: Line):
             bad = w[1] if w[1].text != "force" else w[2]
             raise ShellError(f"unexpected `{bad.text}`; usage: compute [force]", bad.column)
         force = True
-    bar = app.printer.progress()
-    try:
-        rep = app.ws.compute(progress=bar, force=force)
-    finally:
-        bar.close()
+    rep = with_progress(app, app.ws.compute, force=force)
     ev = ("; log evidence " + R.with_error(rep.log_evidence.value, rep.log_evidence.error)
           if rep.log_evidence is not None else "")
     app.printer.line(f"computed {R.count(rep.points)} points in {R.duration(rep.seconds)}{ev}")

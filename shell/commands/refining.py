@@ -16,7 +16,7 @@ from .. import render as R
 from ..registry import NOTHING, Slot, command
 from ..replies import Reply, Shown
 from ..words import Line, ShellError, number
-from .common import notes
+from .common import notes, with_progress
 
 REFINE_USAGE = "refine [NAME] [until TOL]"
 ZOOM_USAGE = "zoom [MASS] [force]"
@@ -139,11 +139,7 @@ def _complete_refine(words, text):
 def refine(app, line: Line):
     ws = app.ws
     axis, until = parse_refine(line, ws.state.model.param_names)
-    bar = app.printer.progress()
-    try:
-        rep = ws.refine(axis, until, progress=bar)
-    finally:
-        bar.close()
+    rep = with_progress(app, ws.refine, axis, until)
     p = app.printer
     notes(app, rep.notes)
     p.lines(refine_table(rep.steps, p.width))
@@ -192,11 +188,7 @@ def parse_zoom(line: Line) -> tuple[float, bool]:
          reached after it.""")
 def zoom(app, line: Line):
     mass, force = parse_zoom(line)
-    bar = app.printer.progress()
-    try:
-        rep = app.ws.zoom(mass, progress=bar, force=force)
-    finally:
-        bar.close()
+    rep = with_progress(app, app.ws.zoom, mass, force=force)
     ev = ("; log evidence " + R.with_error(rep.log_evidence.value, rep.log_evidence.error)
           if rep.log_evidence is not None else "")
     # the engine's last note says where the axes went; any before it (a compute
