@@ -60,6 +60,9 @@ class NodeSet:
     exact_degree : int or None
         Total degree of the polynomials ``p(z)`` for which the finest level
         integrates ``p(z) * normal density`` exactly; None for the trapezoid.
+    note : str
+        What a user must know about how the nodes were built (an exploration
+        stopped by its budget, say); the reduction reports it as a problem.
     """
 
     z: np.ndarray = field(repr=False)
@@ -71,6 +74,7 @@ class NodeSet:
     convergence: str
     log_outside: float = -math.inf
     exact_degree: int | None = None
+    note: str = ""
 
     def __post_init__(self):
         n, d = self.z.shape
@@ -205,6 +209,13 @@ def signed_sums(log_terms: np.ndarray, signs: np.ndarray
         log_abs = np.where(total != 0, np.log(np.abs(total)) + ref, -np.inf)
         canc = np.where(total != 0, mag / np.abs(total), np.where(mag > 0, np.inf, 1.0))
     return log_abs, np.sign(total).astype(int), canc, m
+
+
+def check_dims(rule: str, d) -> int:
+    """The dimension of a rule: a whole number >= 1."""
+    if isinstance(d, bool) or not isinstance(d, (int, np.integer, float)) or int(d) != d or d < 1:
+        raise GridError(f"rule `{rule}` needs a dimension, a whole number >= 1; got {d}")
+    return int(d)
 
 
 def check_budget(rule: str, points: int, what: str) -> None:

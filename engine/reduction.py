@@ -188,7 +188,14 @@ def reduce_nodes(nodes: NodeSet, logf: np.ndarray, *, frame: Frame | None = None
                    else tuple(f"v{i}" for i in range(V.shape[1])))
         if len(v_names) != V.shape[1]:
             raise GridError(f"{len(v_names)} value names for {V.shape[1]} values")
-        V = np.where(np.isfinite(logf)[:, None], V, 0.0)
+        live = np.isfinite(logf)
+        bad = live[:, None] & ~np.isfinite(V)
+        if bad.any():
+            i, j = np.unravel_index(int(np.argmax(bad)), bad.shape)
+            raise ComputeError(f"the value `{v_names[j]}` is {V[i, j]} at a node where the "
+                               f"posterior is not zero (u = "
+                               f"{', '.join(f'{x:.6g}' for x in u[i])})")
+        V = np.where(live[:, None], V, 0.0)
         X = np.column_stack([u, V])
     levels = tuple(_level(nodes, lev, logf, X) for lev in range(nodes.levels))
     usable = [i for i, s in enumerate(levels) if s.integral_ok]
@@ -197,6 +204,8 @@ def reduce_nodes(nodes: NodeSet, logf: np.ndarray, *, frame: Frame | None = None
                            f"({levels[0].problem}); the rule does not fit this posterior")
     problems = [f"rule `{nodes.rule}` {s.label}: {s.problem}" for s in levels
                 if s.problem and not s.structural]
+    if nodes.note:
+        problems.append(f"rule `{nodes.rule}`: {nodes.note}")
     a = usable[0]
     if a != 0:
         problems.append(f"rule `{nodes.rule}`: the answer comes from {levels[a].label}, not the "

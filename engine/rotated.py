@@ -33,7 +33,7 @@ import numpy as np
 from scipy import stats
 
 from .errors import ComputeError, GridError
-from .nodes import NodeSet
+from .nodes import NodeSet, check_dims
 
 #: Default step in z. The trapezoid rule's error for a normal density with spacing
 #: H is about 2 exp(-2 pi^2 / H^2) an axis (common practice, from the Poisson
@@ -160,25 +160,34 @@ def rotated(log_z: Callable[[np.ndarray], np.ndarray], d: int, *, step: float = 
     return ex.finish(drop, outside, decay, message, mass)
 
 
-def _check_rotated(d, step, mass, max_points, zmax):
-    if int(d) != d or d < 1:
-        raise GridError(f"rule `rotated` needs a dimension, a whole number >= 1; got {d}")
+def check_rotated(d, step, mass) -> tuple[int, float, float]:
+    """Validate the dimension, step and mass of `rotated`; returns them.
+
+    Raises
+    ------
+    GridError
+    """
+    d = check_dims("rotated", d)
     if not (isinstance(step, (int, float)) and math.isfinite(step) and 0 < step <= 4):
         raise GridError(f"rule `rotated` needs a step H with 0 < H <= 4 (in posterior sds); "
                         f"got {step}")
-    if not (0 < mass < 0.5):
+    if not (isinstance(mass, (int, float)) and 0 < mass < 0.5):
         raise GridError(f"rule `rotated`: the mass left outside must be between 0 and 0.5; "
                         f"got {mass}")
+    return d, float(step), float(mass)
+
+
+def _check_rotated(d, step, mass, max_points, zmax):
+    d, step, mass = check_rotated(d, step, mass)
     if int(max_points) != max_points or max_points < 1:
         raise GridError(f"rule `rotated`: `max_points` must be a whole number >= 1; got "
                         f"{max_points}")
-    d = int(d)
     # lattice indices are packed into one int64 key: (2 kmax + 1)^d < 2^62
     kmax_keys = int((2.0 ** (62.0 / d) - 1) // 2)
     kmax = min(int(math.ceil(zmax / step)), kmax_keys)
     if kmax < 2:
         raise GridError(f"rule `rotated` cannot index a lattice in {d} dimensions")
-    return d, float(step), float(mass), int(max_points), kmax
+    return d, step, mass, int(max_points), kmax
 
 
 class _Explorer:
@@ -330,8 +339,11 @@ class _Explorer:
         total = float(np.log(np.exp(lf[live] - self.top).sum()) + self.top + d * math.log(H))
         log_out = (math.log(outside) + total if outside > 0 and math.isfinite(outside)
                    else (-math.inf if outside == 0 else math.inf))
-        nodes = NodeSet(idx * H, log_w, signs, "rotated", (("step", H), ("mass", mass)),
-                        tuple(lab for _, _, lab in levels), "geometric", log_out)
         complete = not message and outside <= mass
+        note = message if message else (
+            "" if complete else f"the mass beyond the explored region, about {outside:.2g}, is "
+                                f"above the target {mass:g}")
+        nodes = NodeSet(idx * H, log_w, signs, "rotated", (("step", H), ("mass", mass)),
+                        tuple(lab for _, _, lab in levels), "geometric", log_out, note=note)
         return Exploration(nodes, lf, H, float(drop), int(done.sum()), int((~done).sum()),
                            self.rounds, decay, outside, complete, message)

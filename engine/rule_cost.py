@@ -17,8 +17,8 @@ from typing import Callable
 from scipy import special
 
 from .errors import GridError
-from .rotated import MASS, STEP, initial_drop
-from .sparse import hermite_points, sparse_degree, sparse_points
+from .rotated import MASS, STEP, check_rotated, initial_drop
+from .sparse import check_hermite, check_sparse, hermite_points, sparse_degree, sparse_points
 
 #: Bytes a node costs while a rule is held and reduced: z (d doubles), per level a
 #: log weight and a sign, the log-density, and the moments' products (d doubles).
@@ -66,9 +66,7 @@ def _memory(points: int, d: int, levels: int) -> int:
 
 def hermite_cost(d: int, *, K: int = 3, compare: int = 2) -> RuleCost:
     """Cost of `sparse.hermite(d, K, compare=compare)`."""
-    _check(d, "hermite")
-    if int(K) != K or K < 1:
-        raise GridError(f"rule `hermite` needs K, the points an axis, a whole number >= 1; got {K}")
+    d, K, compare = check_hermite(d, K, compare)
     n = hermite_points(d, K, compare=compare)
     top = K + compare
     acc = ("exact for normal posteriors; for n observations the relative error of the "
@@ -81,9 +79,7 @@ def hermite_cost(d: int, *, K: int = 3, compare: int = 2) -> RuleCost:
 
 def sparse_cost(d: int, *, L: int = 3) -> RuleCost:
     """Cost of `sparse.sparse(d, L)`."""
-    _check(d, "sparse")
-    if int(L) != L or L < 0:
-        raise GridError(f"rule `sparse` needs a level L, a whole number >= 0; got {L}")
+    d, L = check_sparse(d, L)
     n = sparse_points(d, L)
     deg = sparse_degree(d, L)
     levels = min(L + 1, 3)
@@ -96,9 +92,7 @@ def rotated_cost(d: int, *, step: float = STEP, mass: float = MASS) -> RuleCost:
     """Estimated cost of `rotated.rotated(..., step=step, mass=mass)` on a normal
     posterior: the lattice points within radius ``r = sqrt(2 drop)`` plus a frontier
     layer, ``V_d (r + step)^d / step^d`` with ``V_d`` the unit ball's volume."""
-    _check(d, "rotated")
-    if not (0 < step <= 4):
-        raise GridError(f"rule `rotated` needs a step H with 0 < H <= 4; got {step}")
+    d, step, mass = check_rotated(d, step, mass)
     r = math.sqrt(2 * initial_drop(d, mass))
     log_ball = 0.5 * d * math.log(math.pi) - special.gammaln(d / 2 + 1)
     log_n = log_ball + d * (math.log(r + step) - math.log(step))
@@ -127,8 +121,3 @@ def rule_cost(rule: str, d: int, **setting) -> RuleCost:
     if rule not in RULE_COSTS:
         raise GridError(f"unknown rule `{rule}`; known: {', '.join(RULE_COSTS)}")
     return RULE_COSTS[rule](d, **setting)
-
-
-def _check(d, rule: str) -> None:
-    if int(d) != d or d < 1:
-        raise GridError(f"rule `{rule}` needs a dimension, a whole number >= 1; got {d}")

@@ -34,7 +34,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .errors import GridError
-from .nodes import NodeSet, check_budget, from_weights
+from .nodes import NodeSet, check_budget, check_dims, from_weights
 
 #: New points of each nested Genz-Keister extension, and the sizes they give.
 GK_EXTENSIONS = (2, 6, 10, 16)
@@ -204,12 +204,7 @@ def hermite(d: int, K: int, *, compare: int = 2) -> NodeSet:
     GridError
         Bad `d`, `K` or `compare`, or more than `MAX_NODES` points.
     """
-    _check_dims("hermite", d)
-    if int(K) != K or K < 1:
-        raise GridError(f"rule `hermite` needs K, the points an axis, a whole number >= 1; got {K}")
-    if int(compare) != compare or compare < 0:
-        raise GridError(f"rule `hermite`: `compare` must be a whole number >= 0; got {compare}")
-    d, K, compare = int(d), int(K), int(compare)
+    d, K, compare = check_hermite(d, K, compare)
     ks = (K + compare, K) if compare else (K,)
     check_budget("hermite", hermite_points(d, K, compare=compare),
                  f"K = {K} in {d} dimension{'s' if d != 1 else ''}")
@@ -265,12 +260,7 @@ def sparse(d: int, L: int) -> NodeSet:
     GridError
         Bad `d` or `L`, or more than `MAX_NODES` points.
     """
-    _check_dims("sparse", d)
-    if d > SPARSE_MAX_DIMS:
-        raise GridError(f"rule `sparse` works in at most {SPARSE_MAX_DIMS} dimensions; got {d}")
-    if int(L) != L or L < 0:
-        raise GridError(f"rule `sparse` needs a level L, a whole number >= 0; got {L}")
-    d, L = int(d), int(L)
+    d, L = check_sparse(d, L)
     check_budget("sparse", sparse_points(d, L), f"level {L} in {d} dimension{'s' if d != 1 else ''}")
     nodes1d, _ = _gk_tables()
     levels = [lev for lev in (L, L - 1, L - 2) if lev >= 0]
@@ -414,6 +404,31 @@ def _normal_to_lebesgue(z: np.ndarray) -> np.ndarray:
     return 0.5 * d * _LOG_2PI + 0.5 * np.einsum("ij,ij->i", z, z)
 
 
-def _check_dims(rule: str, d) -> None:
-    if int(d) != d or d < 1:
-        raise GridError(f"rule `{rule}` needs a dimension, a whole number >= 1; got {d}")
+def check_hermite(d, K, compare=2) -> tuple[int, int, int]:
+    """Validate the settings of `hermite`; returns them as ints.
+
+    Raises
+    ------
+    GridError
+    """
+    d = check_dims("hermite", d)
+    if isinstance(K, bool) or int(K) != K or K < 1:
+        raise GridError(f"rule `hermite` needs K, the points an axis, a whole number >= 1; got {K}")
+    if isinstance(compare, bool) or int(compare) != compare or compare < 0:
+        raise GridError(f"rule `hermite`: `compare` must be a whole number >= 0; got {compare}")
+    return d, int(K), int(compare)
+
+
+def check_sparse(d, L) -> tuple[int, int]:
+    """Validate the settings of `sparse`; returns them as ints.
+
+    Raises
+    ------
+    GridError
+    """
+    d = check_dims("sparse", d)
+    if d > SPARSE_MAX_DIMS:
+        raise GridError(f"rule `sparse` works in at most {SPARSE_MAX_DIMS} dimensions; got {d}")
+    if isinstance(L, bool) or int(L) != L or L < 0:
+        raise GridError(f"rule `sparse` needs a level L, a whole number >= 0; got {L}")
+    return d, int(L)

@@ -18,16 +18,15 @@ evaluation function) and of the rule.
 
 from __future__ import annotations
 
-import math
 from contextlib import contextmanager
 from dataclasses import dataclass
 
 import numpy as np
 
 from engine import refine
+from engine.errors import ComputeError
 from engine.frame import Frame, check_frame, make_frame, moment_frame
 from engine.model import Compiled
-from engine.nodes import NodeSet
 from engine.posterior import Estimate
 from engine.reduction import RuleReduction, reduce_nodes
 from engine.sparse import hermite, hermite_points, sparse, sparse_points
@@ -175,7 +174,7 @@ def run_sparse(compiled: Compiled, *, evidence_rel: float = 1e-4, sd_share: floa
     lev = red.levels[red.answer_level]
     try:
         frame = moment_frame(lev.mean, lev.cov, names=names)
-    except Exception:
+    except ComputeError:   # the first pass gave no usable covariance: stay at the mode
         frame = s.frame
     cache = _Cache(frame.log_density(s.target))
     L = start

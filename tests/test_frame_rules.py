@@ -556,3 +556,17 @@ def test_rotated_cost_predicts_the_points_of_a_normal(d, H):
 def test_cost_refuses_unknown_rules():
     with pytest.raises(GridError, match=r"unknown rule `simplex`; known: hermite, sparse, rotated"):
         rule_cost("simplex", 3)
+
+
+def test_an_incomplete_exploration_is_a_problem_of_the_answer():
+    ex = rotated(std_normal_logpdf, 3, step=0.5, max_points=3_000)
+    r = reduce_nodes(ex.nodes, ex.logf)
+    assert any("budget of 3,000" in p for p in r.problems)
+    assert not r.converged(1.0)
+
+
+def test_a_value_that_is_not_finite_where_the_posterior_lives_is_refused():
+    ns = sparse(2, 2)
+    with pytest.raises(ComputeError, match=r"the value `w` is inf at a node"):
+        reduce_nodes(ns, std_normal_logpdf(ns.z), values=lambda u: np.exp(1e3 * u[:, :1]),
+                     value_names=("w",))

@@ -13,7 +13,6 @@ and the mode search's together). Every estimated error must cover the true one.
 
 from __future__ import annotations
 
-import numpy as np
 import pytest
 
 from engine.model import compile_model
