@@ -24,10 +24,7 @@ from .paths import state_dir
 from .printer import Printer
 from .registry import COMMANDS, LATER
 from .replies import DataFile, Reply, Shown
-from .words import Line, Quit, ShellError, check_characters
-
-#: How deep `replay` may nest (a file that replays another ...).
-MAX_REPLAY_DEPTH = 8
+from .words import Line, Quit, ShellError, check_characters, layer_word
 
 
 @dataclass
@@ -222,8 +219,6 @@ class App:
         change and everything asked after it leave the session log. Changes inside a
         what-if layer that was dropped are passed over; inside an open layer only its
         own changes can be undone."""
-        from .commands.arrivals import layer_word
-
         closed = 0   # what-if layers passed over, walking back
         for i in range(len(self.log) - 1, -1, -1):
             e = self.log[i]

@@ -27,14 +27,6 @@ from .questions import answer_lines, checkable, question
 WHATIF_USAGE = "whatif  or  whatif end"
 
 
-def layer_word(text: str) -> str | None:
-    """``begin`` for a `whatif` line, ``end`` for `whatif end`, else None."""
-    w = Line.of(text).words
-    if not w or w[0].text != "whatif":
-        return None
-    return "end" if len(w) == 2 and w[1].text == "end" else "begin" if len(w) == 1 else None
-
-
 @command("whatif", usage=WHATIF_USAGE, kind="note", group="arrival",
          complete=lambda words, text: Slot(words=("end",)) if len(words) == 1 else NOTHING,
          help="""Opens a hypothetical layer: the prompt and the toolbar show it, the data
