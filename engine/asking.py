@@ -30,13 +30,9 @@ from .state import Outcome, Prediction, State
 # what a question reads
 
 def _expr(s: State, text: str, *, condition: bool = False) -> sp.Basic:
-    names = {p.name: p.symbol for p in s.model.params}
-    names.update({l_.name: sp.Symbol(l_.name, real=True) for l_ in s.model.lets})
-    for pr in s.predictions:
-        names.setdefault(pr.name, sp.Symbol(pr.name, real=True))
-    for c in s.data.names:
-        if c not in names:
-            names[c] = sp.Symbol(c, real=True)
+    names = s.model.symbols()
+    for other in [pr.name for pr in s.predictions] + list(s.data.names):
+        names.setdefault(other, sp.Symbol(other, real=True))
     return parse(text, names, condition=condition)
 
 

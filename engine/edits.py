@@ -296,8 +296,7 @@ def prediction(s: State, name: str, text: str) -> Prediction:
     if other in ("parameter", "let"):
         raise ModelError(f"`{name}` is already a {other}")
     names = {c: sp.Symbol(c, real=True) for c in s.data.names}
-    names.update({p.name: p.symbol for p in s.model.params})
-    names.update({l_.name: sp.Symbol(l_.name, real=True) for l_ in s.model.lets})
+    names.update(s.model.symbols())
     _, args = parse_call(text, names, fam.FAMILIES)
     cols = {x.name for a in args for x in a.free_symbols} & set(s.data.names)
     if cols:
@@ -319,8 +318,6 @@ def future_rows(s: State, using: str) -> tuple[str, str, tuple]:
     if not rest.strip():
         raise ModelError("`using` needs COL ~ FAMILY(args)")
     checked_name(col, "column name")
-    names = {p.name: p.symbol for p in s.model.params}
-    names.update({l_.name: sp.Symbol(l_.name, real=True) for l_ in s.model.lets})
-    f, args = family_call(rest, names)
+    f, args = family_call(rest, s.model.symbols())
     return (col, f.name, args)
 
