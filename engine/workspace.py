@@ -25,11 +25,9 @@ from .posterior import Posterior
 from .refine import AxisSpec, RefineStep
 from .results import (Answer, Change, Comparison, ComputeReport, CostReport, Fresh, GridAuto,
                       Joint, Kept, RefineReport, SampleSizeOptions, Status, Summary)
-from .runs import BUDGET_SECONDS
+from .runs import BUDGET_SECONDS, Progress
 from .state import History, Outcome, Prediction, State
 from .whatif import Layer
-
-Progress = Callable[[int, int], None] | None
 
 
 class Workspace:
