@@ -20,6 +20,7 @@ import numpy as np
 
 from .errors import DataError, FormulaError
 from .expr import check_name
+from .revision import next_revision
 
 #: Values beyond this magnitude are refused: their squares overflow float64.
 MAX_VALUE = 1e100
@@ -71,11 +72,14 @@ class Table:
 
 @dataclass(frozen=True)
 class DataSet:
-    """Named columns, the tables they came from and the files read."""
+    """Named columns, the tables they came from and the files read. Every change
+    returns a new `DataSet`, with a new `revision` (never reused, unlike ``id()``;
+    not part of equality)."""
 
     columns: tuple[Column, ...] = ()
     tables: tuple[Table, ...] = ()
     files: tuple[FileRecord, ...] = field(default=())
+    revision: int = field(init=False, default_factory=next_revision, compare=False, repr=False)
 
     # -- queries ---------------------------------------------------------
     @property

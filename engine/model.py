@@ -23,6 +23,7 @@ from . import special as S
 from .data import DataSet
 from .errors import DataError, FormulaError, ModelError
 from .expr import check_name
+from .revision import next_revision
 
 #: Largest number of values a discrete parameter may take.
 MAX_DISCRETE_VALUES = 1_000_000
@@ -189,12 +190,14 @@ class Let:
 
 @dataclass(frozen=True)
 class Model:
-    """The model as declared. Every change returns a new `Model`."""
+    """The model as declared. Every change returns a new `Model`, with a new
+    `revision` (never reused, unlike ``id()``; not part of equality)."""
 
     params: tuple[Param, ...] = ()
     priors: tuple[Prior, ...] = ()
     likelihoods: tuple[Likelihood, ...] = ()
     lets: tuple[Let, ...] = ()
+    revision: int = field(init=False, default_factory=next_revision, compare=False, repr=False)
 
     # -- lookups ---------------------------------------------------------
     def param(self, name: str) -> Param:

@@ -17,17 +17,15 @@ import traceback
 from dataclasses import dataclass
 
 from engine.errors import QuadratError
-from engine.workspace import State, Workspace
+from engine.state import State
+from engine.workspace import Workspace
 
 from . import commands  # noqa: F401  (fills the command table)
 from .paths import state_dir
 from .printer import Printer
 from .registry import COMMANDS, LATER
 from .replies import DataFile, Reply, Shown
-from .words import Line, Quit, ShellError, check_characters
-
-#: How deep `replay` may nest (a file that replays another ...).
-MAX_REPLAY_DEPTH = 8
+from .words import Line, Quit, ShellError, check_characters, layer_word
 
 
 @dataclass
@@ -39,6 +37,16 @@ class Entry:
     before: State
     shown: tuple[Shown, ...] = ()
     data_file: DataFile | None = None
+
+
+@dataclass(frozen=True)
+class Mark:
+    """Where things stood before a command: what an error or Ctrl-C goes back to."""
+
+    before: State
+    layer: bool            # whether a what-if layer was open
+    log_length: int
+    prefix: str            # "FILE line N: " for messages, in batch use
 
 
 @dataclass
@@ -106,10 +114,7 @@ class App:
         line = Line.of(source)
         if line.blank:
             return "blank"
-        prefix = f"{where}: " if where else ""
-        before = self.ws.state
-        layer_before = self.ws.in_whatif
-        log_len = len(self.log)
+        mark = Mark(self.ws.state, self.ws.in_whatif, len(self.log), f"{where}: " if where else "")
         self.depth += 1
         outer_where, self.current_where = self.current_where, where
         try:
@@ -118,42 +123,47 @@ class App:
             reply = cmd.handler(self, line) or Reply()
         except Quit:
             raise
-        except KeyboardInterrupt:
-            if self.depth > 1:
-                raise
-            self.restore(before, layer_before)
-            del self.log[log_len:]
-            self.printer.error(f"{prefix}cancelled: the state is as it was before "
-                               f"`{line.name}`")
-            return "cancelled"
-        except QuadratError as exc:
-            # the workspace changes nothing on an error; a question may have
-            # recomputed before failing, and that goes too
-            self.restore(before, layer_before)
-            self.printer.error(f"{prefix}error: {exc}")
-            return "error"
-        except (RecursionError, MemoryError) as exc:
-            self.restore(before, layer_before)
-            what = "out of memory" if isinstance(exc, MemoryError) else "too deeply nested"
-            self.printer.error(f"{prefix}error: `{line.name}` ran {what}; nothing was changed")
-            return "error"
-        except Exception as exc:  # noqa: BLE001 - the loop must go on
-            self.restore(before, layer_before)
-            self.internal_error(exc, prefix)
-            return "error"
+        except (KeyboardInterrupt, Exception) as exc:  # noqa: BLE001 - the loop must go on
+            return self._failed(exc, line, mark)
         finally:
             self.depth -= 1
             self.current_where = outer_where
         if reply.status == "error":
             # a command that ended in an error (a replay that stopped at one) keeps
             # nothing: the state and the session log are as before it
-            self.restore(before, layer_before)
-            del self.log[log_len:]
+            self._back_to(mark, drop_log=True)
             return "error"
-        self.keep(cmd.kind, line, before, reply)
+        self.keep(cmd.kind, line, mark.before, reply)
         if cmd.kind == "check" and reply.status == "ok":
             return "checked"
         return reply.status
+
+    def _failed(self, exc: BaseException, line: Line, mark: "Mark") -> str:
+        """Put everything back as it was before `line`, and say why in one line."""
+        prefix = mark.prefix
+        if isinstance(exc, KeyboardInterrupt):
+            if self.depth > 1:
+                raise exc
+            self._back_to(mark, drop_log=True)
+            self.printer.error(f"{prefix}cancelled: the state is as it was before "
+                               f"`{line.name}`")
+            return "cancelled"
+        # the workspace commits nothing on an error; a command that committed part
+        # of its work first (a replay) is undone too
+        self._back_to(mark)
+        if isinstance(exc, QuadratError):
+            self.printer.error(f"{prefix}error: {exc}")
+        elif isinstance(exc, (RecursionError, MemoryError)):
+            what = "out of memory" if isinstance(exc, MemoryError) else "too deeply nested"
+            self.printer.error(f"{prefix}error: `{line.name}` ran {what}; nothing was changed")
+        else:
+            self.internal_error(exc, prefix)
+        return "error"
+
+    def _back_to(self, mark: "Mark", *, drop_log: bool = False) -> None:
+        self.restore(mark.before, mark.layer)
+        if drop_log:
+            del self.log[mark.log_length:]
 
     def lookup(self, line: Line):
         name = line.name
@@ -165,18 +175,9 @@ class App:
         raise ShellError(f"unknown command `{name}`; `help` lists the commands", 1 + line.start)
 
     def restore(self, before: State, layer_before: bool | None = None) -> None:
-        """Put the workspace back to state `before` (popping the undo stack),
+        """Put the workspace back to state `before` (going back through its history),
         dropping a what-if layer opened since (when `layer_before` is false)."""
-        ws = self.ws
-        if layer_before is False and ws.in_whatif:
-            ws.whatif_end()
-        if ws.state is before:
-            return
-        if any(s is before for s in ws.undo_stack):
-            while ws.state is not before:
-                ws.state = ws.undo_stack.pop()
-        else:
-            ws.state = before
+        self.ws.restore(before, close_layer=layer_before is False)
 
     def internal_error(self, exc: BaseException, prefix: str = "") -> None:
         tb = "".join(traceback.format_exception(type(exc), exc, exc.__traceback__))
@@ -222,8 +223,16 @@ class App:
         change and everything asked after it leave the session log. Changes inside a
         what-if layer that was dropped are passed over; inside an open layer only its
         own changes can be undone."""
-        from .commands.arrivals import layer_word
+        i = self._last_change()
+        e = self.log[i]
+        if not self.ws.history.reachable(e.before):
+            raise ShellError("cannot undo that far back: the undo history is used up")
+        self.restore(e.before)
+        del self.log[i:]
+        return e
 
+    def _last_change(self) -> int:
+        """Where in the session log the change `undo` would undo stands."""
         closed = 0   # what-if layers passed over, walking back
         for i in range(len(self.log) - 1, -1, -1):
             e = self.log[i]
@@ -237,15 +246,8 @@ class App:
                     continue
                 raise ShellError("nothing to undo inside this what-if layer; `whatif end` "
                                  "drops it")
-            if e.kind != "change" or closed:
-                continue
-            ws = self.ws
-            stack_ids = {id(s) for s in ws.undo_stack}
-            if ws.state is not e.before and id(e.before) not in stack_ids:
-                raise ShellError("cannot undo that far back: the undo history is used up")
-            self.restore(e.before)
-            del self.log[i:]
-            return e
+            if e.kind == "change" and not closed:
+                return i
         raise ShellError("nothing to undo")
 
     def run_lines(self, lines, label) -> Tally:

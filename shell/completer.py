@@ -37,9 +37,9 @@ class Names:
 
     @classmethod
     def of(cls, ws) -> "Names":
-        s = ws.state
-        return cls(s.model.param_names, s.data.names, tuple(lt.name for lt in s.model.lets),
-                   tuple(p.name for p in s.predictions), tuple(k.name for k in s.keeps))
+        m = ws.model
+        return cls(m.param_names, ws.data.names, tuple(lt.name for lt in m.lets),
+                   tuple(p.name for p in ws.predictions), tuple(k.name for k in ws.keeps))
 
 
 @dataclass(frozen=True)

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-from engine.workspace import Answer
+from engine.results import Answer
 
 from .render import num, tol_text
 

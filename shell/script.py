@@ -18,10 +18,12 @@ from dataclasses import dataclass
 from engine.export import atomic_write
 
 from . import __version__
-from .words import Line, ShellError
+from .words import Line, ShellError, split_lines
 
 #: The first line of every file `save` writes starts with this.
 HEADER = "# quadrat session"
+#: How deep `replay` may nest (a file that replays another ...).
+MAX_REPLAY_DEPTH = 8
 #: Largest session file read, in bytes.
 MAX_SESSION_BYTES = 64 * 1024 * 1024
 _DATA = re.compile(r"^#\s*data\s+(?P<path>.+?)\s+sha256\s+(?P<sha>[0-9a-fA-F]{64})\s*$")
@@ -171,14 +173,6 @@ def read_session(path: str, shown: str | None = None) -> list[str]:
     return split_lines(text)
 
 
-def split_lines(text: str) -> list[str]:
-    """Lines end at \\n (after \\r\\n or a lone \\r) only: the other breaks that
-    `str.splitlines` knows (\\x85, \\u2028, form feeds) would hide a second command
-    inside what an editor shows as one line; left in, they are refused."""
-    lines = text.replace("\r\n", "\n").replace("\r", "\n").split("\n")
-    return lines[:-1] if lines and lines[-1] == "" else lines
-
-
 def data_checks(lines: list[str], shown: str = "the session file") -> list[DataCheck]:
     """The ``# data PATH sha256 HEX`` lines of the header (the comments and
     blank lines before the first command). A checksum line that is not whole (a
@@ -229,8 +223,6 @@ def replay(app, path: str, *, shown: str | None = None, allow_changed_data: bool
     Returns the `Tally` of the run. Raises `ShellError` (before running anything)
     when a data file changed, unless allowed.
     """
-    from .app import MAX_REPLAY_DEPTH
-
     shown = shown or path
     full = os.path.abspath(app.ws.resolve(path))
     real = os.path.realpath(full)

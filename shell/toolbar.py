@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from engine.workspace import Status
+from engine.results import Status
 
 from .render import count, num
 

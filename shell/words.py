@@ -137,6 +137,22 @@ def check_characters(line: Line) -> None:
             raise ShellError(f"character `{visible(ch)}` is not allowed in a command", i + 1)
 
 
+def split_lines(text: str) -> list[str]:
+    """Lines end at \\n (after \\r\\n or a lone \\r) only: the other breaks that
+    `str.splitlines` knows (\\x85, \\u2028, form feeds) would hide a second command
+    inside what an editor shows as one line; left in, they are refused."""
+    lines = text.replace("\r\n", "\n").replace("\r", "\n").split("\n")
+    return lines[:-1] if lines and lines[-1] == "" else lines
+
+
+def layer_word(text: str) -> str | None:
+    """``begin`` for a `whatif` line, ``end`` for `whatif end`, else None."""
+    w = Line.of(text).words
+    if not w or w[0].text != "whatif":
+        return None
+    return "end" if len(w) == 2 and w[1].text == "end" else "begin" if len(w) == 1 else None
+
+
 def split_commands(text: str) -> list[str]:
     """The commands of ``-c`` text: separated by newlines and by ``;``.
 
@@ -144,8 +160,6 @@ def split_commands(text: str) -> list[str]:
     its line).
     """
     out: list[str] = []
-    from .script import split_lines
-
     for raw in split_lines(text) or [""]:
         cut = raw.find("#")
         body, comment = (raw, "") if cut < 0 else (raw[:cut], raw[cut:])

@@ -105,7 +105,7 @@ def test_predictive_of_binomial_is_beta_binomial():
     w.compute()
     ans = w.predict("y", "binomial(10, p)")
     ref = st.betabinom(10, 7, 7)
-    pv = ans.detail
+    pv = ans.detail.predictive
     pm = np.array([pv.pmf(v) for v in range(11)])
     assert np.max(np.abs(pm - ref.pmf(np.arange(11)))) < 1e-9
     assert ans.values[0] == pytest.approx(ref.mean(), abs=1e-9)
@@ -219,7 +219,7 @@ def test_samplesize_normal_mean_known_sd_matches_closed_form():
     w.prior("mu", "normal(0, 10)")
     w.data_typed("y", ["1.2", "0.4", "2.2", "1.7"])
     w.likelihood("y", "normal(mu, 2)")
-    res, _ = w.samplesize("mu", 1.0, sims=50)
+    res = w.samplesize("mu", 1.0, sims=50).detail
     z = st.norm.ppf(0.975)
     tau2 = 1 / (1 / 100 + 4 / 4)
     want = next(n for n in range(1, 10_000) if 2 * z / math.sqrt(1 / tau2 + n / 4) <= 1.0)
@@ -236,7 +236,7 @@ def test_samplesize_needs_using_when_ambiguous():
     w.likelihood("k", "binomial(n, p)")
     with pytest.raises(ModelError, match="using COL ~ FAMILY"):
         w.samplesize("p", 0.1)
-    res, _ = w.samplesize("p", 0.2, using="k ~ bernoulli(p)", sims=40)
+    res = w.samplesize("p", 0.2, using="k ~ bernoulli(p)", sims=40).detail
     assert res.n is not None and res.n > 0
     assert res.width <= 0.2
 

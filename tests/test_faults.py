@@ -171,7 +171,7 @@ def test_ctrl_c_during_refine_in_python(tmp_path):
         ws.prior("a", "normal(1.5, 0.5)"); ws.prior("b", "normal(0, 1)")
         ws.grid("a", -2, 5, 2001); ws.grid("b", -5, 5, 2001)
         ws.compute()
-        before, depth = ws.state, len(ws.undo_stack)
+        before, depth = ws.state, len(ws.history)
         def progress(done, total):
             if done > total // 4:
                 os.kill(os.getpid(), signal.SIGINT)
@@ -179,7 +179,7 @@ def test_ctrl_c_during_refine_in_python(tmp_path):
             ws.refine(progress=progress)
             print("finished")
         except KeyboardInterrupt:
-            print("interrupted", ws.state is before, len(ws.undo_stack) == depth)
+            print("interrupted", ws.state is before, len(ws.history) == depth)
     """)
     proc = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True,
                           timeout=300, cwd=ROOT)

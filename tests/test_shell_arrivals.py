@@ -454,7 +454,7 @@ def test_a_predictive_without_a_mean_saves_no_check_it_could_not_replay(sh, tmp_
 
 
 def test_the_toolbar_never_cuts_off_an_open_layer():
-    from engine.workspace import Status
+    from engine.results import Status
     from shell.toolbar import toolbar_text
 
     s = Status(tuple(f"parameter{i}" for i in range(12)), 123456789, "out of date",

@@ -327,7 +327,7 @@ def test_question_after_a_change_recomputes_when_cheap(model):
 
 
 def test_question_after_a_change_says_out_of_date_when_costly(model, monkeypatch):
-    import engine.workspace as W
+    import engine.runs as W
 
     model("compute", "prior p ~ beta(1, 1)")
     monkeypatch.setattr(W, "CHEAP_SECONDS", -1.0)
@@ -554,11 +554,11 @@ def test_ctrl_c_during_compute_keeps_the_state_from_before(model):
 
     model.app.printer = Interrupting(model.out, model.err, width=80, color=False)
     model("grid p 0.01 0.99 200001")  # several blocks, so progress is called mid-way
-    before, depth = model.app.ws.state, len(model.app.ws.undo_stack)
+    before, depth = model.app.ws.state, len(model.app.ws.history)
     model.take()
     assert model("compute") == "cancelled"
     assert model.take()[1] == "cancelled: the state is as it was before `compute`\n"
-    assert model.app.ws.state is before and len(model.app.ws.undo_stack) == depth
+    assert model.app.ws.state is before and len(model.app.ws.history) == depth
     assert model.app.ws.status().posterior == "absent"
 
 

@@ -15,7 +15,7 @@ from prompt_toolkit.history import InMemoryHistory
 from prompt_toolkit.input import create_pipe_input
 from prompt_toolkit.output import DummyOutput
 
-from engine.workspace import Status
+from engine.results import Status
 from shell import render as R
 from shell.app import App
 from shell.completer import Names, ShellCompleter, candidates

@@ -240,13 +240,13 @@ class Interrupting(Printer):
 @pytest.mark.parametrize("command", ["refine", "refine until 1e-8", "zoom"])
 def test_ctrl_c_during_refine_and_zoom_leaves_the_state_as_before(model, command):
     model("grid p 0.01 0.99 21", "compute")
-    before, depth = model.app.ws.state, len(model.app.ws.undo_stack)
+    before, depth = model.app.ws.state, len(model.app.ws.history)
     log = [e.text for e in model.app.log]
     model.app.printer = Interrupting(model.out, model.err, width=80, color=False)
     model.take()
     assert model(command) == "cancelled"
     assert model.take()[1] == f"cancelled: the state is as it was before `{command.split()[0]}`\n"
-    assert model.app.ws.state is before and len(model.app.ws.undo_stack) == depth
+    assert model.app.ws.state is before and len(model.app.ws.history) == depth
     assert model.app.ws.state.posterior.grid.size == 21
     assert [e.text for e in model.app.log] == log
 

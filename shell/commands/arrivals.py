@@ -10,8 +10,9 @@ replay goes through the same layer and its checks compare the what-if values.
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 
-from engine.workspace import Answer
+from engine.results import Answer, SampleSizeOptions
 
 from .. import render as R
 from ..registry import NOTHING, Slot, command
@@ -25,14 +26,6 @@ from .questions import answer_lines, checkable, question
 # whatif
 
 WHATIF_USAGE = "whatif  or  whatif end"
-
-
-def layer_word(text: str) -> str | None:
-    """``begin`` for a `whatif` line, ``end`` for `whatif end`, else None."""
-    w = Line.of(text).words
-    if not w or w[0].text != "whatif":
-        return None
-    return "end" if len(w) == 2 and w[1].text == "end" else "begin" if len(w) == 1 else None
 
 
 @command("whatif", usage=WHATIF_USAGE, kind="note", group="arrival",
@@ -81,7 +74,8 @@ def _pmf_rows(pv) -> list[list[str]]:
 
 
 def _pred_values(a: Answer) -> str:
-    mean, sd, lo, hi = a.values
+    d = a.detail
+    mean, sd, lo, hi = d.mean, d.sd, d.lo, d.hi
     iv = f"95% interval {R.num(lo)} .. {R.num(hi)}"
     if not math.isfinite(mean):
         return f"no mean or sd (its tails are too heavy), {iv}"
@@ -93,7 +87,7 @@ def _pred_values(a: Answer) -> str:
 def ask_predict(app, line: Line) -> Asked:
     name, rest = split_at(line, 1, _TILDE, "~", PREDICT_USAGE)
     a = formula_at(rest, app.ws.predict, name.text, rest.text)
-    pv = a.detail
+    pv = a.detail.predictive
     label = f"new {name.text} ~ {rest.text}"
     lines = list(answer_lines(label, a, _pred_values))
     if a.now is None and pv.discrete:
@@ -103,7 +97,7 @@ def ask_predict(app, line: Line) -> Asked:
     kind = "pmf" if pv.discrete else "density"
     lines.append(f"`prob {name.text} > ...`, `mean {name.text}`, `quantile {name.text} Q` and "
                  f"`interval {name.text}` ask about it; `plot {name.text}` draws its {kind}")
-    sd = a.values[1]
+    sd = a.detail.sd
     tol = R.check_tol(a.values, a.errors, scale=sd if math.isfinite(sd) else None)
     return Asked(a, tuple(lines), checkable(line, a.values, tol))
 
@@ -147,7 +141,18 @@ def _level(word: Word) -> float:
     return v
 
 
-def parse_samplesize(line: Line, params) -> dict:
+@dataclass(frozen=True)
+class SampleSizeLine:
+    """A `samplesize` line read: the parameter, the width, the search options (the
+    engine's defaults where not given), and where the `using` formula starts."""
+
+    name: str
+    width: float
+    options: SampleSizeOptions
+    using_at: Segment | None = None
+
+
+def parse_samplesize(line: Line, params) -> SampleSizeLine:
     """The options of a `samplesize` line, each checked where it stands."""
     w = line.words
     if len(w) < 2:
@@ -155,89 +160,101 @@ def parse_samplesize(line: Line, params) -> dict:
                          line.end_column())
     if w[1].text not in params:
         raise ShellError(f"no parameter `{w[1].text}`", w[1].column)
-    opts: dict = {"name": w[1].text}
+    given: dict = {}
+    width = using_at = None
     i = 2
     while i < len(w):
         x = w[i]
         key = x.text
         if key == "using":
-            seg = line.after(x.end)
-            if not seg.text:
-                raise ShellError("`using` needs COL ~ FAMILY(args)", x.end + 1)
-            tilde = seg.text.find("~")
-            if tilde < 0:
-                raise ShellError("`using` needs COL ~ FAMILY(args)", seg.column)
-            opts["using"] = seg.text
-            opts["using_at"] = Segment(seg.text[tilde + 1:], seg.start + tilde + 1)
+            given["using"], using_at = _using(line, x)
             break
         if key in ("hpd", "central"):
-            if "kind" in opts:
-                raise ShellError(f"two kinds of interval: `{opts['kind']}` and `{key}`",
+            if "kind" in given:
+                raise ShellError(f"two kinds of interval: `{given['kind']}` and `{key}`",
                                  x.column)
-            opts["kind"] = key
+            given["kind"] = key
             i += 1
             continue
         if key not in _SS_WORDS:
             raise ShellError(f"unexpected `{key}`; usage: {SAMPLESIZE_USAGE}", x.column)
-        if key in opts:
+        field = _SS_FIELDS.get(key, key)
+        if field in given or (key == "width" and width is not None):
             raise ShellError(f"`{key}` given twice", x.column)
         if i + 1 >= len(w):
             raise ShellError(f"`{key}` needs a number", x.end + 1)
-        v = w[i + 1]
+        value = _ss_value(key, w[i + 1])
         if key == "width":
-            opts[key] = number(v, "width")
-            if not opts[key] > 0:
-                raise ShellError(f"width must be positive; got `{v.text}`", v.column)
-        elif key == "level":
-            opts[key] = _level(v)
-        elif key == "max":
-            opts[key] = whole(v, "max", low=1)
-        elif key == "sims":
-            opts[key] = whole(v, "sims", low=2)
+            width = value
         else:
-            opts[key] = whole(v, "seed", low=0)
+            given[field] = value
         i += 2
-    if "width" not in opts:
+    if width is None:
         raise ShellError(f"`samplesize` needs `width W`: {SAMPLESIZE_USAGE}", line.end_column())
-    return opts
+    return SampleSizeLine(w[1].text, width, SampleSizeOptions(**given), using_at)
+
+
+#: Words of a `samplesize` line that name a differently spelled option.
+_SS_FIELDS = {"max": "max_n"}
+
+
+def _ss_value(key: str, v: Word):
+    """The number after option word `key`, checked."""
+    if key == "width":
+        width = number(v, "width")
+        if not width > 0:
+            raise ShellError(f"width must be positive; got `{v.text}`", v.column)
+        return width
+    if key == "level":
+        return _level(v)
+    if key == "max":
+        return whole(v, "max", low=1)
+    if key == "sims":
+        return whole(v, "sims", low=2)
+    return whole(v, "seed", low=0)
+
+
+def _using(line: Line, x: Word) -> tuple[str, Segment]:
+    """``using COL ~ FAMILY(args)``: the text, and where the formula starts."""
+    seg = line.after(x.end)
+    if not seg.text:
+        raise ShellError("`using` needs COL ~ FAMILY(args)", x.end + 1)
+    tilde = seg.text.find("~")
+    if tilde < 0:
+        raise ShellError("`using` needs COL ~ FAMILY(args)", seg.column)
+    return seg.text, Segment(seg.text[tilde + 1:], seg.start + tilde + 1)
 
 
 def ask_samplesize(app, line: Line) -> Asked:
     ws = app.ws
-    o = parse_samplesize(line, ws.state.model.param_names)
-    kw = dict(level=o.get("level", 0.95), max_n=o.get("max", 10_000), using=o.get("using"),
-              sims=o.get("sims", 200), seed=o.get("seed", 1), kind=o.get("kind", "central"))
-    if "using_at" in o:
-        res, why = formula_at(o["using_at"], ws.samplesize, o["name"], o["width"], **kw)
+    o = parse_samplesize(line, ws.model.param_names)
+    if o.using_at is not None:
+        a = formula_at(o.using_at, ws.samplesize, o.name, o.width, o.options)
     else:
-        res, why = ws.samplesize(o["name"], o["width"], **kw)
-    n = res.n
-    values = (float(n) if n is not None else math.nan, res.width)
-    if ws.in_whatif:
-        why = tuple(why) + ("answered for the what-if state",)
-    a = Answer("samplesize", f"further observations for `{o['name']}`", values,
-               (None, res.mc_error), tuple(why), res)
+        a = ws.samplesize(o.name, o.width, o.options)
+    d = a.detail
+    res, n = d.search, d.n
     lines = []
     if res.steps:
         lines += R.table(["further n", "expected width", "Monte Carlo error"],
                          [[R.count(s.n), R.num(s.width, 4), R.num(s.mc_error, 2)]
                           for s in res.steps], align="rrr")
-    what = f"{kw['level']:g} {kw['kind']} interval of `{o['name']}`"
+    what = f"{d.level:g} {d.kind} interval of `{o.name}`"
     if n is None:
         lines.append(f"{line.text}: {res.message}")
     elif n == 0:
-        lines.append(f"{line.text} = 0, {R.num(res.width)}")
+        lines.append(f"{line.text} = 0, {R.num(d.width)}")
         lines.append(res.message)
     else:
-        lines.append(f"{line.text} = {n}, {R.num(res.width)}")
+        lines.append(f"{line.text} = {n}, {R.num(d.width)}")
         lines.append(f"after {R.count(n)} further observation{'s' if n != 1 else ''} the "
-                     f"expected width of the {what} is {R.num(res.width, 4)} (Monte Carlo "
-                     f"error {R.num(res.mc_error, 2)}; {res.sims} simulations, seed {res.seed})")
+                     f"expected width of the {what} is {R.num(d.width, 4)} (Monte Carlo "
+                     f"error {R.num(d.mc_error, 2)}; {res.sims} simulations, seed {res.seed})")
         if res.message:
             lines.append(f"note: {res.message}")
     # n is exact for the seed; the width is a deterministic function of it
-    tol = R.check_tol(values, (None, None)) if n is not None else 0.0
-    return Asked(a, tuple(lines), Shown(line.text, values, tol) if n is not None else None)
+    tol = R.check_tol(a.values, (None, None)) if n is not None else 0.0
+    return Asked(a, tuple(lines), Shown(line.text, a.values, tol) if n is not None else None)
 
 
 def _complete_samplesize(words, text):
@@ -297,7 +314,7 @@ def ask_compare(app, line: Line) -> Asked:
                          line.end_column())
     if len(w) > 3:
         raise ShellError(f"unexpected `{w[3].text}`; usage: compare NAME NAME", w[3].column)
-    kept = {k.name for k in app.ws.state.keeps}
+    kept = {k.name for k in app.ws.keeps}
     for x in w[1:3]:
         if x.text not in kept:
             raise ShellError(f"no kept model `{x.text}`; keep one with `keep NAME`", x.column)
@@ -305,8 +322,7 @@ def ask_compare(app, line: Line) -> Asked:
         raise ShellError("compare needs two different kept models", w[2].column)
     c = app.ws.compare(w[1].text, w[2].text)
     est = c.log_bf
-    a = Answer("compare", f"log Bayes factor of `{c.first.name}` over `{c.second.name}`",
-               (est.value,), (est.error,), (), c)
+    a = c.answer
     bf = c.bayes_factor
     lines = [f"log Bayes factor of `{c.first.name}` over `{c.second.name}` = "
              f"{R.with_error(est.value, est.error)}"]

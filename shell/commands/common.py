@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from engine.workspace import Change
+from engine.results import Change
 
 from ..words import Line, ShellError, Word
 

@@ -95,7 +95,7 @@ def _file_and_prefix(line: Line, usage: str) -> tuple[str, str | None]:
 
 def _file_reply(ws, path: str) -> Reply:
     """The reply that records the data file just read (its checksum goes into `save`)."""
-    record = ws.state.data.files[-1]
+    record = ws.data.files[-1]
     return Reply(data_file=DataFile(path, os.path.abspath(ws.resolve(path)), record.sha256))
 
 
@@ -112,13 +112,13 @@ def _append(app, line: Line):
         if values == [""]:
             raise ShellError(f"`data append {name}` has no values after `=`",
                              seg.start + m.start("rest") + 1)
-        if name not in ws.state.data:
+        if name not in ws.data:
             raise ShellError(f"no data column `{name}` to append to; `data {name} = ...` "
                              "gives a new one", seg.column)
         say(app, with_progress(app, ws.data_append, name, values))
         return None
     w = line.words
-    if w[2].text in ws.state.data:
+    if w[2].text in ws.data:
         raise ShellError(f"expected `=` after `{w[2].text}`; usage: {APPEND_USAGE}",
                          w[2].end + 1)
     path, prefix = _file_and_prefix(line, APPEND_USAGE)

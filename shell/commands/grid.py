@@ -12,7 +12,7 @@ from ..words import Line, ShellError, number, whole
 from .common import notes, say, with_progress
 
 #: `compute` refuses grids of this many points even when forced (the engine's
-#: limit in `Workspace._check_cost`: point indices must fit in 64 bits).
+#: limit in `runs.check_cost`: point indices must fit in 64 bits).
 COUNT_LIMIT = 2**62
 
 GRID_USAGE = "grid NAME LO HI [N] [linear|log|logit]  or  grid auto"
@@ -38,8 +38,7 @@ def grid(app, line: Line):
     if len(w) >= 2 and w[1].text == "auto":
         if len(w) > 2:
             raise ShellError(f"unexpected `{w[2].text}` after `grid auto`", w[2].column)
-        change, _ = app.ws.grid_auto()
-        say(app, change)
+        say(app, app.ws.grid_auto().change)
         return
     if len(w) < 4:
         raise ShellError(f"`grid` needs more: {GRID_USAGE}", line.end_column())

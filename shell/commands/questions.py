@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import math
 
-from engine.workspace import Answer
+from engine.results import Answer
 
 from .. import render as R
 from ..registry import COMMANDS, NOTHING, Slot, command
@@ -96,14 +96,13 @@ def ask_prob(app, line: Line) -> Asked:
 def ask_mean(app, line: Line) -> Asked:
     seg = _formula(line, "an expression, as in `mean p`")
     a = formula_at(seg, app.ws.mean, seg.text)
-    sd = a.detail.sd   # an Estimate; a plain number for a predicted observation
-    return _asked(line, a, line.text, scale=getattr(sd, "value", sd))
+    return _asked(line, a, line.text, scale=a.detail.scale)
 
 
 def ask_sd(app, line: Line) -> Asked:
     seg = _formula(line, "an expression, as in `sd p`")
     a = formula_at(seg, app.ws.sd, seg.text)
-    return _asked(line, a, line.text, scale=a.values[0])
+    return _asked(line, a, line.text, scale=a.detail.scale)
 
 
 def ask_quantile(app, line: Line) -> Asked:
@@ -168,15 +167,15 @@ def ask_interval(app, line: Line) -> Asked:
             continue
         raise ShellError(f"unexpected `{x.text}`; usage: {INTERVAL_USAGE}", x.column)
     name = w[1].text
-    if name not in app.ws.state.model.param_names and name not in predicted_names(app.ws):
+    if name not in app.ws.model.param_names and name not in predicted_names(app.ws):
         raise ShellError(f"no parameter `{name}`", w[1].column)
     a = app.ws.interval(name, level, kind)
-    return _asked(line, a, line.text, scale=abs(a.values[1] - a.values[0]))
+    return _asked(line, a, line.text, scale=abs(a.detail.hi - a.detail.lo))
 
 
 def predicted_names(ws) -> tuple[str, ...]:
     """The names `predict` gave new observations."""
-    return tuple(p.name for p in ws.state.predictions)
+    return tuple(p.name for p in ws.predictions)
 
 
 def _complete_interval(words, text):
@@ -191,9 +190,7 @@ def ask_mode(app, line: Line) -> Asked:
         raise ShellError(f"unexpected `{w[1].text}`: `mode` takes nothing", w[1].column)
     a = app.ws.mode()
     m = a.detail
-    post = app.ws.state.posterior
-    sds = [post.marginals[n].sd for n in m.values if n in post.marginals] if post else []
-    floor = 1e-5 * max(sds, default=0.0)
+    floor = 1e-5 * max(m.spreads, default=0.0)
     tol = R.check_tol(a.values, a.errors, floor=floor)
     if a.now is not None:
         lines = side_by_side("mode " + ", ".join(m.values),

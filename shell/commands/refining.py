@@ -29,10 +29,10 @@ def final_checks(app) -> tuple[Shown, ...]:
 
     ws = app.ws
     asks = []
-    post = ws.state.posterior
+    post = ws.posterior_now
     if post is not None and post.log_evidence is not None:
         asks.append((ask_evidence, "evidence"))
-    for name in ws.state.model.param_names:
+    for name in ws.model.param_names:
         asks += [(ask_mean, f"mean {name}"), (ask_sd, f"sd {name}"),
                  (ask_interval, f"interval {name} 0.95")]
     out = []
@@ -138,7 +138,7 @@ def _complete_refine(words, text):
          writes checks of the final values after it.""")
 def refine(app, line: Line):
     ws = app.ws
-    axis, until = parse_refine(line, ws.state.model.param_names)
+    axis, until = parse_refine(line, ws.model.param_names)
     rep = with_progress(app, ws.refine, axis, until)
     p = app.printer
     notes(app, rep.notes)

@@ -41,8 +41,7 @@ def show(app, line: Line):
 
 
 def model_lines(ws) -> list[str]:
-    s = ws.state
-    m = s.model
+    m = ws.model
     if not m.params and not m.likelihoods and not m.lets:
         return ["no model yet: declare a parameter with `param NAME ...`"]
     out = ["parameters"]
@@ -102,7 +101,7 @@ def _short(values: np.ndarray, k: int = 6) -> str:
 
 
 def data_lines(ws) -> list[str]:
-    d = ws.state.data
+    d = ws.data
     if not d.columns:
         return ["no data yet: `data NAME = v1, v2, ...` or `data load FILE.csv`"]
     rows = []
@@ -120,18 +119,16 @@ def data_lines(ws) -> list[str]:
 
 
 def grid_lines(ws) -> list[str]:
-    s = ws.state
-    out = [f"rule {s.rule}"]
-    names = s.model.param_names
-    for n in names:
-        spec = s.spec(n)
+    out = [f"rule {ws.rule_name}"]
+    for n in ws.model.param_names:
+        spec = ws.spec(n)
         if spec is None:
             out.append(f"  {n}: not set (found by `grid auto` when computing)")
         else:
             pts = f", {spec.n} points" if spec.n else ""
             sc = f", {spec.scale} scale" if spec.scale else ""
             out.append(f"  {n}: {R.num(spec.lo)} .. {R.num(spec.hi)}{pts}{sc}")
-    post = s.posterior
+    post = ws.posterior_now
     if post is not None:
         st = ws.status().posterior
         out.append(f"the posterior ({st}) was computed on {R.count(post.grid.size)} points:")
@@ -168,13 +165,13 @@ def plot(app, line: Line):
         raise ShellError(f"`plot` needs a parameter: {PLOT_USAGE}", line.end_column())
     if len(w) > 3:
         raise ShellError(f"unexpected `{w[3].text}`; usage: {PLOT_USAGE}", w[3].column)
-    params = app.ws.state.model.param_names
+    params = app.ws.model.param_names
     if w[1].text == "refine" and "refine" not in params:
         if len(w) > 2:
             raise ShellError(f"unexpected `{w[2].text}`: `plot refine` takes nothing",
                              w[2].column)
         return plot_refine(app)
-    predicted = {p.name for p in app.ws.state.predictions}
+    predicted = {p.name for p in app.ws.predictions}
     if len(w) == 2 and w[1].text not in params and w[1].text in predicted:
         return plot_predicted(app, w[1].text)
     for x in w[1:]:
@@ -184,10 +181,12 @@ def plot(app, line: Line):
         raise ShellError("a joint plot needs two different parameters", w[2].column)
     if len(w) == 3:
         # refused before anything is computed when the joint would not fit in memory
-        mass, post, why = app.ws.joint(w[1].text, w[2].text)
+        got = app.ws.joint(w[1].text, w[2].text)
+        mass = got.mass
     else:
-        post, why = app.ws.posterior()
-    notes(app, why)
+        got = app.ws.posterior()
+    post = got.posterior
+    notes(app, got.notes)
     if app.ws.in_whatif:
         app.printer.note("drawn for the what-if state")
     p = app.printer
@@ -220,7 +219,7 @@ def plot_refine(app) -> None:
     from .. import plots
 
     ws = app.ws
-    steps = [s for s in ws.state.steps if s.step > 0 and s.largest is not None]
+    steps = [s for s in ws.steps if s.step > 0 and s.largest is not None]
     if not steps:
         raise ShellError("no refinement steps to draw: `refine` or `refine until TOL` first")
     if ws.status().posterior == "out of date":
@@ -248,7 +247,7 @@ def plot_predicted(app, name: str) -> None:
 
     a = app.ws.mean(name)
     notes(app, a.notes)
-    pv = a.detail
+    pv = a.detail.predictive
     p = app.printer
     values, dens = np.asarray(pv.values, float), np.asarray(pv.density, float)
     iv = None
@@ -339,7 +338,7 @@ def export(app, line: Line):
     may_write(app, full, force, word)
     summary = app.ws.summary()
     notes(app, summary.notes)
-    post = app.ws.state.posterior
+    post = app.ws.posterior_now
     meta = {"quadrat": __version__,
             "exported": datetime.datetime.now(datetime.timezone.utc).isoformat(timespec="seconds"),
             "model": session_model_text(app.ws)}
@@ -353,7 +352,7 @@ def export(app, line: Line):
 
 def session_model_text(ws) -> list[str]:
     """The model's declarations, one line each (for the JSON export)."""
-    m = ws.state.model
+    m = ws.model
     out = [f"param {p.name}: {p.describe()}" for p in m.params]
     for pr in m.priors:
         out.append(f"prior {pr.target} ~ {pr.text}" if pr.target else f"prior log {pr.text}")

@@ -124,12 +124,12 @@ class Probe:
         ws.base_dir = folder
         ws.budget_seconds = budget_seconds
         if base is not None:
-            ws.state = base.ws.state
-            ws._compiled_cache = base.ws._compiled_cache
+            # the compiled model is cached on the state itself, so it comes along
+            ws.restore(base.ws.state)
 
     def snapshot(self) -> tuple:
         app, ws = self.app, self.app.ws
-        return (id(ws.state), tuple(id(s) for s in ws.undo_stack), ws.in_whatif,
+        return (id(ws.state), tuple(id(s) for s in ws.history.earlier), ws.in_whatif,
                 tuple((e.text, e.kind, len(e.shown)) for e in app.log), ws.base_dir)
 
     def files(self) -> dict:

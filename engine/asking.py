@@ -1,0 +1,263 @@
+"""The questions, each asked of a fresh posterior.
+
+Every question takes a `State` and returns an `Outcome`: the state (holding the
+posterior computed first when it was out of date and cheap, or the same state)
+and the `Answer`. Questions about a name given to `predict` are answered from
+its posterior predictive distribution. Nothing is committed here.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import sympy as sp
+
+from . import plan, questions, runs
+from .edits import future_rows
+from .errors import ComputeError
+from .expr import parse
+from .posterior import Interval
+from .predict import Predictive, predictive, sample_size
+from .refine import axis_count
+from .results import (Answer, Joint, Needed, Number, Point, Predicted, Range,
+                      SampleSizeOptions, Summary, SummaryRow)
+from .runs import fresh
+from .state import Outcome, Prediction, State
+
+
+# ---------------------------------------------------------------------------
+# what a question reads
+
+def _expr(s: State, text: str, *, condition: bool = False) -> sp.Basic:
+    names = s.model.symbols()
+    for other in [pr.name for pr in s.predictions] + list(s.data.names):
+        names.setdefault(other, sp.Symbol(other, real=True))
+    return parse(text, names, condition=condition)
+
+
+def _predicted_in(s: State, e: sp.Basic) -> Prediction | None:
+    found = [s.prediction(x.name) for x in e.free_symbols if s.prediction(x.name) is not None]
+    if not found:
+        return None
+    if len(found) > 1 or e.free_symbols != {sp.Symbol(found[0].name, real=True)}:
+        raise ComputeError(f"a question about the predicted `{found[0].name}` may use "
+                           "only it and numbers")
+    return found[0]
+
+
+def _predicted_itself(s: State, e: sp.Basic) -> Prediction | None:
+    pr = _predicted_in(s, e)
+    if pr is not None and not isinstance(e, sp.Symbol):
+        raise ComputeError(f"ask about the predicted `{pr.name}` itself (mean {pr.name}, "
+                           f"sd {pr.name}, quantile {pr.name} Q)")
+    return pr
+
+
+def _predictive(s: State, pr: Prediction, budget_seconds: float
+                ) -> tuple[Outcome, Predictive]:
+    """The fresh posterior's outcome, and the predictive of `pr` under it."""
+    got = fresh(s, budget_seconds=budget_seconds)
+    post = got.result.posterior
+    return got, predictive(post, pr.name, pr.family, pr.args, got.state.model)
+
+
+def _answer(got: Outcome, kind: str, label: str, detail, notes=()) -> Outcome:
+    """The answer on the state `got` came to, with the notes of its posterior first."""
+    return Outcome(got.state, Answer(kind, label, detail, tuple(got.result.notes) + tuple(notes)))
+
+
+# ---------------------------------------------------------------------------
+# the summaries
+
+def summary(s: State, *, budget_seconds: float) -> Outcome:
+    got = fresh(s, budget_seconds=budget_seconds)
+    post = got.result.posterior
+    rows = tuple(SummaryRow(name, post.param_mean(name), post.param_sd(name),
+                            post.quantile(name, 0.025), post.quantile(name, 0.5),
+                            post.quantile(name, 0.975)) for name in post.names)
+    return Outcome(got.state, Summary(rows, post.log_evidence, post.grid.size,
+                                      got.result.notes))
+
+
+def interval(s: State, name: str, level: float = 0.95, kind: str = "central", *,
+             budget_seconds: float) -> Outcome:
+    pr = s.prediction(name)
+    if pr is not None:
+        if kind != "central":
+            raise ComputeError("a predicted observation has central intervals only")
+        got, pv = _predictive(s, pr, budget_seconds)
+        a = (1 - level) / 2
+        return _answer(got, "interval", f"{level:g} central interval of new {name}",
+                       Range(pv.quantile(a), pv.quantile(1 - a), None, None, level, kind,
+                             predictive=pv))
+    got = fresh(s, budget_seconds=budget_seconds)
+    s.model.param(name)
+    iv: Interval = got.result.posterior.interval(name, level, kind)
+    notes = ()
+    if len(iv.pieces) > 1:
+        notes = (f"the {kind} region has {len(iv.pieces)} pieces: " + ", ".join(
+            f"[{a:.6g}, {b:.6g}]" for a, b in iv.pieces),)
+    return _answer(got, "interval", f"{level:g} {kind} interval of {name}",
+                   Range(iv.lo.value, iv.hi.value, iv.lo.error, iv.hi.error, level, kind,
+                         tuple(iv.pieces)), notes)
+
+
+def mode(s: State, *, budget_seconds: float) -> Outcome:
+    got = fresh(s, budget_seconds=budget_seconds)
+    post = got.result.posterior
+    m = questions.mode(post)
+    spreads = tuple(post.marginals[n].sd for n in m.values if n in post.marginals)
+    return _answer(got, "mode", "joint mode " + ", ".join(m.values),
+                   Point(dict(m.values), m.converged, m.message, spreads),
+                   () if m.converged else (m.message,))
+
+
+def evidence(s: State, *, budget_seconds: float) -> Outcome:
+    got = fresh(s, budget_seconds=budget_seconds)
+    post = got.result.posterior
+    if post.log_evidence is None:
+        why = "; ".join(post.compiled.improper) or "the prior is improper"
+        raise ComputeError(f"the evidence is not defined: {why}")
+    ev = post.log_evidence
+    return _answer(got, "evidence", "log evidence", Number(ev.value, ev.error))
+
+
+# ---------------------------------------------------------------------------
+# prob, mean, sd, quantile of any expression
+
+def prob(s: State, text: str, *, budget_seconds: float) -> Outcome:
+    cond = _expr(s, text, condition=True)
+    pr = _predicted_in(s, cond)
+    if pr is not None:
+        got, pv = _predictive(s, pr, budget_seconds)
+        return _answer(got, "prob", f"P({text.strip()}) for a new {pr.name}",
+                       Number(_predictive_prob(pv, cond, pr.name), predictive=pv))
+    got = fresh(s, budget_seconds=budget_seconds)
+    est = questions.probability(got.result.posterior, cond)
+    return _answer(got, "prob", f"P({text.strip()})", Number(est.value, est.error))
+
+
+def moment(s: State, kind: str, text: str, *, budget_seconds: float) -> Outcome:
+    """`mean` or `sd` of an expression, or of a predicted observation."""
+    e = _expr(s, text)
+    pr = _predicted_itself(s, e)
+    if pr is not None:
+        got, pv = _predictive(s, pr, budget_seconds)
+        value = pv.mean if kind == "mean" else pv.sd
+        return _answer(got, kind, f"{kind} of a new {pr.name}",
+                       Number(value, scale=pv.sd, predictive=pv))
+    got = fresh(s, budget_seconds=budget_seconds)
+    mo = questions.moments(got.result.posterior, e)
+    est = mo.mean if kind == "mean" else mo.sd
+    return _answer(got, kind, f"{kind} of {text.strip()}",
+                   Number(float(est.value), est.error, scale=mo.sd.value))
+
+
+def quantile(s: State, text: str, q: float, *, budget_seconds: float) -> Outcome:
+    e = _expr(s, text)
+    pr = _predicted_itself(s, e)
+    if pr is not None:
+        got, pv = _predictive(s, pr, budget_seconds)
+        return _answer(got, "quantile", f"{q:g} quantile of a new {pr.name}",
+                       Number(pv.quantile(q), predictive=pv))
+    got = fresh(s, budget_seconds=budget_seconds)
+    est = questions.quantile(got.result.posterior, e, q)
+    return _answer(got, "quantile", f"{q:g} quantile of {text.strip()}",
+                   Number(est.value, est.error))
+
+
+# ---------------------------------------------------------------------------
+# predictions and sample size
+
+def predict(s: State, pr: Prediction, *, budget_seconds: float) -> Outcome:
+    """The posterior predictive of the new observation `pr`."""
+    got, pv = _predictive(s, pr, budget_seconds)
+    return _answer(got, "predict", f"new {pr.name} ~ {pr.text}",
+                   Predicted(pv.mean, pv.sd, pv.quantile(0.025), pv.quantile(0.975), pv))
+
+
+def samplesize(s: State, name: str, width: float, options: SampleSizeOptions, *,
+               progress=None, budget_seconds: float) -> Outcome:
+    """How many further observations until the expected width of the interval of
+    `name` is at most `width` (average length criterion)."""
+    o = options
+    s.model.param(name)
+    use = future_rows(s, o.using) if o.using is not None else None
+    got = fresh(s, budget_seconds=budget_seconds)
+    res = sample_size(got.result.posterior, got.state.model, name, width, level=o.level,
+                      max_n=o.max_n, using=use, data=got.state.data, sims=o.sims, seed=o.seed,
+                      kind=o.kind, progress=progress)
+    return _answer(got, "samplesize", f"further observations for `{name}`",
+                   Needed(res.n, res.width, res.mc_error, o.level, o.kind, res))
+
+
+_REL = {sp.StrictLessThan: "<", sp.LessThan: "<=", sp.StrictGreaterThan: ">",
+        sp.GreaterThan: ">=", sp.Equality: "==", sp.Unequality: "!="}
+_FLIP = {"<": ">", "<=": ">=", ">": "<", ">=": "<=", "==": "==", "!=": "!="}
+
+
+def _predictive_prob(pv: Predictive, cond, name: str) -> float:
+    """P(cond) for a condition on one predicted observation: comparisons with
+    numbers, or a range `a < y < b`."""
+    sym = sp.Symbol(name, real=True)
+    parts = list(cond.args) if isinstance(cond, sp.And) else [cond]
+    lo = (-math.inf, True)   # (bound, inclusive)
+    hi = (math.inf, True)
+    eqs = []
+    for c in parts:
+        if type(c) not in _REL:
+            raise ComputeError(f"a condition on the predicted `{name}` compares it with numbers "
+                               f"(as in {name} > 5, or 2 <= {name} <= 8)")
+        op = _REL[type(c)]
+        if c.lhs == sym and c.rhs.is_number:
+            x = float(c.rhs)
+        elif c.rhs == sym and c.lhs.is_number:
+            x, op = float(c.lhs), _FLIP[op]
+        else:
+            raise ComputeError(f"a condition on the predicted `{name}` compares it with numbers "
+                               f"(as in {name} > 5, or 2 <= {name} <= 8)")
+        if op in ("==", "!="):
+            eqs.append((op, x))
+        elif op in (">", ">="):
+            lo = max(lo, (x, op == ">="), key=lambda t: (t[0], not t[1]))
+        else:
+            hi = min(hi, (x, op == "<="), key=lambda t: (t[0], t[1]))
+    if eqs:
+        if len(parts) != 1:
+            raise ComputeError("`==` and `!=` on a predicted observation stand alone")
+        return pv.prob(*eqs[0])
+    p_hi = 1.0 if hi[0] == math.inf else pv.prob("<=" if hi[1] else "<", hi[0])
+    p_lo = 0.0 if lo[0] == -math.inf else pv.prob("<" if lo[1] else "<=", lo[0])
+    return max(p_hi - p_lo, 0.0)
+
+
+# ---------------------------------------------------------------------------
+# the joint of two parameters
+
+def joint(s: State, a: str, b: str, *, budget_seconds: float) -> Outcome:
+    """The 2-D posterior marginal of parameters `a` and `b` (a `Joint`); one that
+    would not fit in memory is refused with the figure before anything is
+    computed or allocated."""
+    pa, pb = s.model.param(a), s.model.param(b)
+    sa, sb = s.spec(a), s.spec(b)
+    if sa is not None and sb is not None:
+        plan.check_memory([axis_count(pa, sa), axis_count(pb, sb)], pair=(a, b))
+    got = fresh(s, budget_seconds=budget_seconds)
+    post, notes = got.result.posterior, got.result.notes
+    i, j = post.grid.index(a), post.grid.index(b)
+    if (i, j) in post.pairs or (j, i) in post.pairs:
+        mass = post.pair(a, b)
+        return Outcome(got.state, Joint(mass / mass.sum(), post, notes))
+    na, nb = post.grid.axes[i].n, post.grid.axes[j].n
+    plan.check_memory([na, nb], pair=(a, b))
+    if post.logp is None and post.seconds > runs.CHEAP_SECONDS:
+        raise ComputeError(
+            f"the joint of `{a}` and `{b}` was not kept by the pass over "
+            f"{plan.format_count(post.grid.size)} points, and another pass would take "
+            f"about {plan.format_duration(post.seconds)}: use fewer points")
+    mass = np.zeros(na * nb)
+    for idx, _theta, ws in questions.walk(post):
+        mass += np.bincount(idx[i] * nb + idx[j], weights=ws[0], minlength=na * nb)
+    mass = mass.reshape(na, nb)
+    return Outcome(got.state, Joint(mass / mass.sum(), post, notes))

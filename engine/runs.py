@@ -1,0 +1,352 @@
+"""Running the numerics on a state: cost and budget, compute, refine, zoom,
+appends, `grid auto`, and the warnings a posterior earns.
+
+Each operation takes a `State` and returns an `Outcome`: the state holding the
+new posterior (current under its own basis) and the report. Nothing is
+committed here, so a Ctrl-C or an error part way leaves the caller's state as
+it was. The time budget is the caller's: every entry point takes it.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, replace
+from typing import Callable
+
+import numpy as np
+
+from . import plan
+from .data import DataSet
+from .edits import data_notes
+from .errors import ComputeError, GridError, QuadratError
+from .grid import Grid
+from .model import Compiled, compile_model
+from .posterior import Posterior, compute as compute_posterior
+from .refine import (AxisSpec, auto_grid, axis_count, build_grid, refine as refine_posterior,
+                     refined_grid, widen_specs, zoom_specs)
+from .results import Change, ComputeReport, CostReport, CostStep, Fresh, GridAuto, RefineReport
+from .state import Outcome, State
+
+#: A question recomputes a stale posterior by itself when that is predicted to
+#: take less than this many seconds.
+CHEAP_SECONDS = 2.0
+#: Default budget: `compute` refuses longer jobs unless forced.
+BUDGET_SECONDS = 600.0
+#: Posterior mass at an axis end above which `compute` warns.
+EDGE_WARN = 1e-6
+#: The edge mass `grid auto` aims for; an append that pushes past ten times this
+#: re-sizes the grid.
+EDGE_MASS_AUTO = 1e-9
+#: Fewer nodes than this across one posterior sd is called too coarse.
+MIN_POINTS_PER_SD = 5.0
+#: How many times `zoom` widens a grid that came out too tight.
+ZOOM_WIDENINGS = 8
+
+Progress = Callable[[int, int], None] | None
+
+
+@dataclass(frozen=True)
+class Sizing:
+    """The grid a compute would use: the user's axes, `grid auto` for the rest."""
+
+    grid: Grid
+    notes: tuple[str, ...]
+    auto: tuple[AxisSpec, ...]      # the specs `grid auto` found, if it ran
+
+
+# ---------------------------------------------------------------------------
+# sizing and cost
+
+def check_count(s: State, compiled: Compiled) -> None:
+    """Refuse a grid of the user's axes with more points than can be counted,
+    before its axes are built (axes of millions of nodes take memory)."""
+    by = {x.name: x for x in s.specs}
+    if not all(p.name in by for p in compiled.params):
+        return
+    points = math.prod(axis_count(p, by[p.name]) for p in compiled.params)
+    if points >= 2**62:
+        raise ComputeError(f"this grid has {plan.format_count(points)} points: more than "
+                           "quadrat can count; use fewer points or fewer parameters")
+
+
+def sizing(s: State, compiled: Compiled) -> Sizing:
+    """The grid to compute on: the user's axes, and `grid auto` for the rest."""
+    notes = []
+    have = {x.name for x in s.specs}
+    missing = [p.name for p in compiled.params if p.name not in have]
+    specs = list(s.specs)
+    auto_used: tuple[AxisSpec, ...] = ()
+    if missing:
+        ag = auto_grid(compiled)
+        auto_used = ag.specs
+        specs += [x for x in ag.specs if x.name in missing]
+        notes.append("grid auto for " + ", ".join(f"`{m}`" for m in missing))
+        if ag.message:
+            notes.append(ag.message)
+    return Sizing(build_grid(compiled.params, specs, rule=s.rule), tuple(notes), auto_used)
+
+
+def check_cost(compiled: Compiled, grid: Grid, *, budget_seconds: float,
+               force: bool = False) -> plan.Cost:
+    """Refuse a grid that would not fit in memory, or (unless forced) would break
+    the time budget, before anything is allocated."""
+    c = plan.estimate(compiled, grid)
+    if c.points >= 2**62:
+        raise ComputeError(f"this grid has {plan.format_count(c.points)} points: more than "
+                           "quadrat can count; use fewer points or fewer parameters")
+    if not c.fits:
+        raise ComputeError(
+            f"this grid ({plan.format_count(c.points)} points) needs about "
+            f"{plan.format_bytes(c.memory)} of memory; quadrat may use "
+            f"{plan.format_bytes(c.machine_memory)} here: use fewer points or `zoom`")
+    if not force and c.seconds > budget_seconds:
+        raise ComputeError(
+            f"this grid has {plan.format_count(c.points)} points and would take about "
+            f"{plan.format_duration(c.seconds)} (budget {plan.format_duration(budget_seconds)}): "
+            "use fewer points, `zoom`, or another rule; `compute force` runs it anyway")
+    return c
+
+
+def cost(s: State, *, budget_seconds: float) -> CostReport:
+    compiled = s.compiled()
+    size = sizing(s, compiled)
+    grid = size.grid
+    c = plan.estimate(compiled, grid, precise=True)
+    ahead = []
+    g = grid
+    if not all(a.discrete for a in grid.axes) and c.points < 10**12:
+        for k in range(1, 4):
+            g2 = refined_grid(g, None)
+            share = 1.0 - g.size / g2.size if g.size <= plan.STORE_LIMIT else 1.0
+            mem = plan.memory_for(g2.size, [a.n for a in g2.axes], levels=g2.levels)
+            ahead.append(CostStep(k, g2.size, mem, c.seconds_per_point * g2.size * share))
+            g = g2
+    return CostReport(c, tuple(a.describe() for a in grid.axes), s.rule, bool(size.auto),
+                      budget_seconds, tuple(ahead), advice(c, grid, budget_seconds))
+
+
+def advice(c: plan.Cost, grid: Grid, budget_seconds: float) -> str:
+    """Which way to go when a tensor grid is too big for the budget."""
+    if c.fits and c.seconds <= budget_seconds:
+        return ""
+    d = sum(1 for a in grid.axes if not a.discrete)
+    per = max(2, int((budget_seconds / max(c.seconds_per_point, 1e-12)) ** (1 / max(d, 1))))
+    text = (f"{plan.format_count(c.points)} points is beyond the budget: a tensor grid "
+            f"grows as N^d, and within {plan.format_duration(budget_seconds)} it allows about "
+            f"{per} points per axis for {d} continuous parameters")
+    if d > 6:
+        text += "; with this many parameters a tensor grid is the wrong tool"
+    else:
+        text += "; use fewer points, `grid auto` or `zoom` to tighten the bounds"
+    return text
+
+
+# ---------------------------------------------------------------------------
+# computing
+
+def compute(s: State, *, budget_seconds: float, progress: Progress = None,
+            force: bool = False) -> Outcome:
+    """The posterior on the state's grid: an Outcome with a `ComputeReport`."""
+    compiled = s.compiled()
+    check_count(s, compiled)
+    return _compute_on(s, compiled, sizing(s, compiled), budget_seconds=budget_seconds,
+                       progress=progress, force=force)
+
+
+def _compute_on(s: State, compiled: Compiled, size: Sizing, *, budget_seconds: float,
+                progress: Progress, force: bool) -> Outcome:
+    grid = size.grid
+    check_cost(compiled, grid, budget_seconds=budget_seconds, force=force)
+    post = compute_posterior(compiled, grid, progress=progress)
+    notes = size.notes
+    if post.diagnostics.zero_points:
+        notes = notes + (f"the posterior is zero at {post.diagnostics.zero_points:,} of "
+                         f"{grid.size:,} grid points (outside a support or constraint)",)
+    notes = notes + tuple(compiled.improper)
+    return Outcome(s.with_posterior(post, steps=()),
+                   ComputeReport(grid.size, post.seconds, post.log_evidence, notes,
+                                 warnings(post)))
+
+
+def fresh(s: State, *, budget_seconds: float) -> Outcome:
+    """The current posterior (a `Fresh`): the state's own, or computed first when
+    that is cheap; refused with the figure when it is not."""
+    if s.current:
+        return Outcome(s, Fresh(s.posterior))
+    what = "no posterior yet" if s.posterior is None else "the posterior is out of date"
+    compiled = s.compiled()
+    check_count(s, compiled)
+    size = sizing(s, compiled)
+    c = plan.estimate(compiled, size.grid)
+    if c.seconds > CHEAP_SECONDS or not c.fits:
+        raise ComputeError(f"{what} (about {plan.format_duration(c.seconds)} to compute): use "
+                           "`compute`")
+    out = _compute_on(s, compiled, size, budget_seconds=budget_seconds, progress=None,
+                      force=False)
+    rep = out.result
+    return Outcome(out.state, Fresh(out.state.posterior,
+                                    (f"{what}: computed first ({rep.points:,} points)",)
+                                    + rep.notes + rep.warnings))
+
+
+def computed(s: State, *, budget_seconds: float, progress: Progress = None) -> Outcome:
+    """The current posterior (a `Fresh`), computed first whatever it takes (within
+    the budget) when the state has none that is current."""
+    if s.current:
+        return Outcome(s, Fresh(s.posterior))
+    out = compute(s, budget_seconds=budget_seconds, progress=progress)
+    rep = out.result
+    return Outcome(out.state, Fresh(out.state.posterior,
+                                    (f"computed first ({rep.points:,} points)",) + rep.notes))
+
+
+def warnings(post: Posterior) -> tuple[str, ...]:
+    """Mass at the edges of the grid, and axes too coarse for the posterior's spread."""
+    out = []
+    for name, (lo_m, hi_m) in post.diagnostics.edge_mass.items():
+        ax = post.grid.axis(name)
+        p = post.compiled.model.param(name)
+        if lo_m > EDGE_WARN and not (ax.scale == "linear" and ax.lo <= p.lo):
+            out.append(f"mass at the lower edge of `{name}` ({lo_m:.2g} at {ax.lo:.6g}): "
+                       "widen the grid or use `grid auto`")
+        if hi_m > EDGE_WARN and not (ax.scale == "linear" and ax.hi >= p.hi):
+            out.append(f"mass at the upper edge of `{name}` ({hi_m:.2g} at {ax.hi:.6g}): "
+                       "widen the grid or use `grid auto`")
+    for a in post.grid.axes:
+        if a.discrete or a.n < 2:
+            continue
+        m = post.marginals[a.name]
+        h = float(np.median(a.spacing()))
+        if m.sd > 0 and h > 0 and m.sd / h < MIN_POINTS_PER_SD:
+            out.append(f"the grid of `{a.name}` is too coarse for its spread: "
+                       f"{m.sd / h:.2g} points across one sd (want at least "
+                       f"{MIN_POINTS_PER_SD:g}); use more points or `zoom`")
+    return tuple(out)
+
+
+def grid_auto(s: State) -> Outcome:
+    """Every axis from the posterior's modes and curvature: a `GridAuto`."""
+    compiled = s.compiled()
+    ag = auto_grid(compiled)
+    notes = []
+    if len(ag.modes) > 1:
+        notes.append(f"{len(ag.modes)} separated modes: " + "; ".join(
+            ", ".join(f"{k} = {v:.4g}" for k, v in m.items()) for m in ag.modes))
+    if ag.message:
+        notes.append(ag.message)
+    grid = build_grid(compiled.params, ag.specs, rule=s.rule)
+    lines = "; ".join(a.describe() for a in grid.axes)
+    return Outcome(replace(s, specs=ag.specs),
+                   GridAuto(Change(f"grid auto: {lines} ({grid.size:,} points)", tuple(notes)),
+                            ag))
+
+
+# ---------------------------------------------------------------------------
+# refining and zooming
+
+def _specs_of(post: Posterior) -> tuple[AxisSpec, ...]:
+    return tuple(AxisSpec(a.name, a.lo, a.hi, None if a.discrete else a.n,
+                          None if a.discrete else a.scale) for a in post.grid.axes)
+
+
+def refine(s: State, axis: str | None = None, until: float | None = None, *,
+           budget_seconds: float, progress: Progress = None) -> Outcome:
+    """Refine step by step (computing first if needed): a `RefineReport`; the
+    state takes the final posterior and its grid."""
+    if axis is not None:
+        s.model.param(axis)
+    if until is not None and not (until > 0 and math.isfinite(until)):
+        raise GridError(f"`until` needs a positive tolerance; got {until:g}")
+    first = computed(s, budget_seconds=budget_seconds, progress=progress)
+    s = first.state
+    res = refine_posterior(s.compiled(), first.result.posterior, axis=axis, until=until,
+                           budget_seconds=budget_seconds, progress=progress)
+    new = res.posterior
+    steps = (s.steps if s.steps else res.steps[:1]) + res.steps[1:]
+    return Outcome(s.with_posterior(new, specs=_specs_of(new), steps=steps),
+                   RefineReport(res.steps, res.converged, res.message, first.result.notes,
+                                warnings(new)))
+
+
+def zoom(s: State, mass: float = 1 - 1e-9, *, budget_seconds: float,
+         progress: Progress = None, force: bool = False) -> Outcome:
+    """Shrink every axis to the region holding `mass` and compute again with the
+    same number of points: a `ComputeReport`."""
+    first = computed(s, budget_seconds=budget_seconds, progress=progress)
+    s, notes = first.state, first.result.notes
+    specs = zoom_specs(first.result.posterior, mass)
+    compiled = s.compiled()
+    widened: list[str] = []
+    for attempt in range(ZOOM_WIDENINGS):
+        grid = build_grid(compiled.params, specs, rule=s.rule)
+        check_cost(compiled, grid, budget_seconds=budget_seconds, force=force)
+        new = compute_posterior(compiled, grid, progress=progress)
+        # the region read off a coarse grid can be too tight: widen any end that
+        # now holds mass and compute again
+        wider, moved = widen_specs(new, specs, edge_mass=10 * EDGE_MASS_AUTO)
+        if not moved or attempt == ZOOM_WIDENINGS - 1:
+            break
+        specs = wider
+        widened.extend(moved)
+    if widened:
+        notes = notes + ("the zoomed grid held mass at its edge; widened at the "
+                         + ", ".join(sorted(set(widened))),)
+    lines = "; ".join(a.describe() for a in grid.axes)
+    return Outcome(s.with_posterior(new, specs=specs, steps=()),
+                   ComputeReport(grid.size, new.seconds, new.log_evidence,
+                                 notes + (f"zoomed to {mass:.10g} of the mass: {lines}",),
+                                 warnings(new)))
+
+
+# ---------------------------------------------------------------------------
+# data arriving
+
+def append(s: State, data: DataSet, message: str, *, budget_seconds: float,
+           progress: Progress = None) -> Outcome:
+    """The state with `data` (new rows at the end of columns): a current posterior
+    that keeps its density is updated from the new rows alone, and re-sized when
+    the mass moves toward an edge of its grid. A `Change`."""
+    post = s.posterior
+    if not s.current or post.logp is None:
+        return Outcome(replace(s, data=data), Change(message, data_notes(s.model, data)))
+    try:
+        old_rows = {part.key: part.rows for part in s.compiled().likelihood}
+        full = compile_model(s.model, data)
+        inc = compile_model(s.model, data, rows_from=old_rows)
+    except QuadratError as exc:
+        return Outcome(replace(s, data=data),
+                       Change(message, (f"{exc}; the posterior waits until the columns agree",)))
+    new_post = compute_posterior(full, post.grid, logp=_updated_logp(post, inc),
+                                 progress=progress)
+    ns = replace(s, data=data, steps=())
+    notes = ("posterior updated from the new rows alone",)
+    specs = s.specs
+    edge = max((max(v) for v in new_post.diagnostics.edge_mass.values()), default=0.0)
+    if edge > 10 * EDGE_MASS_AUTO:
+        ag = auto_grid(full)
+        grid2 = build_grid(full.params, ag.specs, rule=s.rule)
+        check_cost(full, grid2, budget_seconds=budget_seconds)
+        new_post = compute_posterior(full, grid2, progress=progress)
+        lines = "; ".join(a.describe() for a in grid2.axes)
+        notes = (f"the mass moved toward an edge of the grid ({edge:.2g}); grid re-sized: "
+                 f"{lines}",)
+        specs = ag.specs
+    ns = ns.with_posterior(new_post, specs=specs)
+    ns.remember(full)
+    return Outcome(ns, Change(message, notes + warnings(new_post)))
+
+
+def _updated_logp(post: Posterior, inc: Compiled) -> np.ndarray:
+    """The stored log density of `post` plus the new rows' log-likelihood `inc` at
+    every grid point (points where the density was zero stay zero)."""
+    grid = post.grid
+    delta = np.empty(grid.size)
+    for start, stop in grid.blocks(1 << 20):
+        idx = grid.indices(start, stop)
+        theta = [a.values[i] for a, i in zip(grid.axes, idx)]
+        with np.errstate(all="ignore"):
+            delta[start:stop] = inc.log_likelihood(theta)
+    with np.errstate(invalid="ignore"):
+        logp = post.logp + delta
+    logp[np.isneginf(post.logp)] = -np.inf
+    return logp
