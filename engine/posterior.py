@@ -242,7 +242,7 @@ class Marginal:
         def fnat(u):
             # density in the parameter's units: g(u) / |dv/du|
             v = np.maximum(spl(u), 0.0) / total
-            lj = _logjac_of(ax, u)
+            lj = ax.log_jacobian(u)
             return v / np.exp(lj)
 
         fm = fnat(mesh)
@@ -273,11 +273,6 @@ class Marginal:
         pieces = region(t)
         return tuple((float(ax.to_value(np.array([a]))[0]), float(ax.to_value(np.array([b]))[0]))
                      for a, b in pieces)
-
-
-def _logjac_of(ax: Axis, u):
-    from .grid import _logjac
-    return _logjac(u, ax.scale, ax.dom_lo, ax.dom_hi)
 
 
 def _cross(f, t, a, b):

@@ -14,11 +14,11 @@ from dataclasses import dataclass
 from typing import Sequence
 
 import numpy as np
-import scipy.special as sc
 from scipy import optimize
 
 from .errors import ComputeError, GridError
-from .grid import DEFAULT_POINTS, MAX_AXIS_POINTS, Axis, Grid, make_axis
+from .grid import (DEFAULT_POINTS, MAX_AXIS_POINTS, SCALE_TABLE, Axis, Grid, make_axis,
+                   unconstrained_scale)
 from .model import Compiled, Param
 from .posterior import Posterior, compute, evaluate_block
 
@@ -30,9 +30,6 @@ CHECK_POINTS = 200_000
 AUTO_BUDGET = 1 << 22
 #: Nodes per curvature sd that `grid auto` aims for on every continuous axis.
 PER_SD = 6.0
-#: How far the log / logit scales may reach: beyond these, values round to the
-#: domain's edge in double precision (1 - 1e-16 == 1).
-U_LIMITS = {"log": (-700.0, 700.0), "logit": (-700.0, 36.0), "linear": (-math.inf, math.inf)}
 
 
 @dataclass(frozen=True)
@@ -80,46 +77,13 @@ def default_points(dims: int) -> int:
 
 # -- unconstrained coordinates -------------------------------------------------
 
-def _scale_for(p: Param) -> str:
-    if p.kind == "positive":
-        return "log"
-    if p.kind in ("unit", "interval"):
-        return "logit"
-    return "linear"
-
-
-def _to_value(u, p: Param, scale: str):
-    if scale == "log":
-        return p.lo + np.exp(u)
-    if scale == "logit":
-        return p.lo + (p.hi - p.lo) * sc.expit(u)
-    return u
-
-
-def _to_u(v, p: Param, scale: str):
-    with np.errstate(all="ignore"):
-        if scale == "log":
-            return np.log(v - p.lo)
-        if scale == "logit":
-            return sc.logit((v - p.lo) / (p.hi - p.lo))
-    return v
-
-
-def _logjac(u, scale: str, p: Param):
-    if scale == "log":
-        return u
-    if scale == "logit":
-        return math.log(p.hi - p.lo) + sc.log_expit(u) + sc.log_expit(-u)
-    return np.zeros_like(u)
-
-
 class _Target:
     """The log posterior in unconstrained coordinates (Jacobian included)."""
 
     def __init__(self, compiled: Compiled, fixed: dict[str, float]):
         self.c = compiled
         self.cont = [p for p in compiled.params if not p.discrete]
-        self.scales = [_scale_for(p) for p in self.cont]
+        self.scales = [SCALE_TABLE[unconstrained_scale(p)] for p in self.cont]
         self.fixed = fixed
 
     def theta(self, U: np.ndarray) -> list[np.ndarray]:
@@ -130,7 +94,7 @@ class _Target:
             if p.discrete:
                 out.append(np.full(U.shape[0], self.fixed[p.name]))
             else:
-                out.append(np.asarray(_to_value(U[:, k], p, self.scales[k]), float))
+                out.append(np.asarray(self.scales[k].to_value(U[:, k], p.lo, p.hi), float))
                 k += 1
         return out
 
@@ -140,10 +104,10 @@ class _Target:
             lp = evaluate_block(self.c, self.theta(U))
         # beyond the scales' limits values round to the domain's edge: out of bounds
         for k, scale in enumerate(self.scales):
-            lo, hi = U_LIMITS[scale]
+            lo, hi = scale.limits
             lp = np.where((U[:, k] < lo) | (U[:, k] > hi), -np.inf, lp)
         for k, p in enumerate(self.cont):
-            lp = lp + _logjac(U[:, k], self.scales[k], p)
+            lp = lp + self.scales[k].logjac(U[:, k], p.lo, p.hi)
         return np.where(np.isnan(lp), -np.inf, lp)
 
 
@@ -260,20 +224,10 @@ def _symbolic_hessian_u(target: _Target, x: np.ndarray) -> np.ndarray | None:
     d2 = np.empty(len(x))    # d2 value / du2
     lj2 = np.empty(len(x))   # d2 log|d value/du| / du2
     for k, (p, scale) in enumerate(zip(target.cont, target.scales)):
-        u = x[k]
-        if scale == "log":
-            if u > 700:
-                return None
-            d1[k] = d2[k] = math.exp(u)
-            lj2[k] = 0.0
-        elif scale == "logit":
-            s_ = float(sc.expit(u))
-            w = p.hi - p.lo
-            d1[k] = w * s_ * (1 - s_)
-            d2[k] = d1[k] * (1 - 2 * s_)
-            lj2[k] = -2 * s_ * (1 - s_)
-        else:
-            d1[k], d2[k], lj2[k] = 1.0, 0.0, 0.0
+        der = scale.derivatives(x[k], p.lo, p.hi)
+        if der is None:
+            return None
+        d1[k], d2[k], lj2[k] = der.first, der.second, der.logjac_second
     Hu = H * np.outer(d1, d1) + np.diag(g * d2 + lj2)
     return Hu if np.all(np.isfinite(Hu)) else None
 
@@ -344,12 +298,12 @@ def auto_grid(compiled: Compiled, *, points: dict[str, int] | None = None,
     modes = find_modes(compiled, fixed) if cont else []
     lo_u = {}
     hi_u = {}
-    scales = {p.name: _scale_for(p) for p in cont}
+    scales = {p.name: unconstrained_scale(p) for p in cont}
     sd_u = {}
     for k, p in enumerate(cont):
         los = [m[0][k] - width * m[2][k] for m in modes]
         his = [m[0][k] + width * m[2][k] for m in modes]
-        ulo, uhi = U_LIMITS[scales[p.name]]
+        ulo, uhi = SCALE_TABLE[scales[p.name]].limits
         lo_u[p.name], hi_u[p.name] = max(min(los), ulo), min(max(his), uhi)
         sd_u[p.name] = min(m[2][k] for m in modes)
 
@@ -360,8 +314,8 @@ def auto_grid(compiled: Compiled, *, points: dict[str, int] | None = None,
                 out.append(AxisSpec(p.name, p.lo, p.hi, None, None))
                 continue
             sc_ = scales[p.name]
-            lo = float(_to_value(np.array(lo_u[p.name]), p, sc_))
-            hi = float(_to_value(np.array(hi_u[p.name]), p, sc_))
+            lo = float(SCALE_TABLE[sc_].to_value(np.array(lo_u[p.name]), p.lo, p.hi))
+            hi = float(SCALE_TABLE[sc_].to_value(np.array(hi_u[p.name]), p.lo, p.hi))
             lo, hi = max(lo, p.lo), min(hi, p.hi)
             if sc_ == "linear" and p.bounded:
                 lo, hi = max(lo, p.lo), min(hi, p.hi)
@@ -405,7 +359,7 @@ def auto_grid(compiled: Compiled, *, points: dict[str, int] | None = None,
             span = hi_u[p.name] - lo_u[p.name]
             at_lo = a.scale == "linear" and a.lo <= p.lo
             at_hi = a.scale == "linear" and a.hi >= p.hi
-            ulo, uhi = U_LIMITS[scales[p.name]]
+            ulo, uhi = SCALE_TABLE[scales[p.name]].limits
             if m_lo > per_end and not at_lo and lo_u[p.name] > ulo:
                 lo_u[p.name] = max(lo_u[p.name] - 0.5 * span, ulo)
                 grow[p.name][0] += 1
@@ -440,7 +394,7 @@ def auto_grid(compiled: Compiled, *, points: dict[str, int] | None = None,
     specs = specs_from()
     limited = []
     for p in cont:
-        lo_lim, hi_lim = U_LIMITS[scales[p.name]]
+        lo_lim, hi_lim = SCALE_TABLE[scales[p.name]].limits
         m_lo, m_hi = edge.get(p.name, (0.0, 0.0))
         if m_hi > per_end and hi_u[p.name] >= hi_lim and scales[p.name] == "log":
             # the log scale's top is a value near 1e304, not a domain edge
