@@ -113,6 +113,35 @@ class Interval:
     pieces: tuple[tuple[float, float], ...] = ()
 
 
+@dataclass(frozen=True)
+class _CdfSpline:
+    """A marginal's density on its axis's scale as a spline, integrated exactly.
+
+    Attributes
+    ----------
+    density : BSpline
+        ``g(u)``, the node masses over the rule's weights, interpolated (quintic
+        where there are nodes enough).
+    anti : BSpline
+        Its antiderivative.
+    ua, ub : float
+        The ends of the axis on its scale (the cdf is 0 and 1 there).
+    f0, total : float
+        ``anti(ua)`` and ``anti(ub) - anti(ua)``.
+    """
+
+    density: interpolate.BSpline
+    anti: interpolate.BSpline
+    ua: float
+    ub: float
+    f0: float
+    total: float
+
+    def cdf_u(self, u: np.ndarray | float) -> np.ndarray:
+        uu = np.clip(u, self.ua, self.ub)
+        return np.clip((self.anti(uu) - self.f0) / self.total, 0.0, 1.0)
+
+
 class Marginal:
     """The posterior marginal of one parameter on its axis.
 
@@ -156,7 +185,7 @@ class Marginal:
         return self.mass / (self.weights * np.exp(self.logjac))
 
     # -- the cdf ---------------------------------------------------------
-    def _cdf_spline(self):
+    def _cdf_spline(self) -> "_CdfSpline":
         if self._spline is None:
             g = self.mass / self.weights
             k = min(5, len(self.u) - 1)
@@ -170,14 +199,11 @@ class Marginal:
             ua = min(float(ua), self.u[0])
             ub = max(float(ub), self.u[-1])
             f0 = float(anti(ua))
-            total = float(anti(ub)) - f0
-            self._spline = (spl, anti, ua, ub, f0, total)
+            self._spline = _CdfSpline(spl, anti, ua, ub, f0, float(anti(ub)) - f0)
         return self._spline
 
     def cdf_u(self, u: np.ndarray | float) -> np.ndarray:
-        spl, anti, ua, ub, f0, total = self._cdf_spline()
-        uu = np.clip(u, ua, ub)
-        return np.clip((anti(uu) - f0) / total, 0.0, 1.0)
+        return self._cdf_spline().cdf_u(u)
 
     def cdf(self, x: float) -> float:
         """P(parameter <= x)."""
@@ -202,12 +228,12 @@ class Marginal:
             c = np.cumsum(self.mass)
             i = int(np.searchsorted(c, q - 1e-12))
             return float(self.values[min(i, len(self.values) - 1)])
-        spl, anti, ua, ub, f0, total = self._cdf_spline()
+        cs = self._cdf_spline()
         if q <= 0:
-            return float(self.axis.to_value(np.array([ua]))[0])
+            return float(self.axis.to_value(np.array([cs.ua]))[0])
         if q >= 1:
-            return float(self.axis.to_value(np.array([ub]))[0])
-        knots = np.concatenate([[ua], self.u, [ub]])
+            return float(self.axis.to_value(np.array([cs.ub]))[0])
+        knots = np.concatenate([[cs.ua], self.u, [cs.ub]])
         c = self.cdf_u(knots)
         i = int(np.searchsorted(c, q))
         i = min(max(i, 1), len(knots) - 1)
@@ -235,13 +261,13 @@ class Marginal:
             k = int(np.searchsorted(c, level - 1e-12)) + 1
             chosen = np.sort(self.values[order[:k]])
             return _runs(chosen, self.values)
-        spl, anti, ua, ub, f0, total = self._cdf_spline()
-        mesh = np.linspace(ua, ub, max(4000, 20 * len(self.u)))
+        cs = self._cdf_spline()
+        mesh = np.linspace(cs.ua, cs.ub, max(4000, 20 * len(self.u)))
         ax = self.axis
 
         def fnat(u):
             # density in the parameter's units: g(u) / |dv/du|
-            v = np.maximum(spl(u), 0.0) / total
+            v = np.maximum(cs.density(u), 0.0) / cs.total
             lj = ax.log_jacobian(u)
             return v / np.exp(lj)
 
