@@ -241,10 +241,10 @@ def _symbolic_hessian_u(target: _Target, x: np.ndarray) -> np.ndarray | None:
     in the parameters (chain rule through each axis's transform), or None."""
     th = target.theta(x[None, :])
     point = {p.name: float(t[0]) for p, t in zip(target.c.params, th)}
-    r = target.c.curvature(point)
-    if r is None:
+    curv = target.c.curvature(point)
+    if curv is None:
         return None
-    g, H = r
+    g, H = curv.gradient, curv.hessian
     d1 = np.empty(len(x))    # d value / du
     d2 = np.empty(len(x))    # d2 value / du2
     lj2 = np.empty(len(x))   # d2 log|d value/du| / du2
