@@ -1122,7 +1122,7 @@ class Workspace:
                    kind: str = "central", progress=None):
         """How many further observations until the expected width of the `level`
         interval of `name` is at most `width` (average length criterion)."""
-        from .predict import sample_size
+        from .predict import FutureRows, sample_size
         s = self.state
         s.model.param(name)
         use = None
@@ -1138,7 +1138,7 @@ class Workspace:
             names = {p.name: p.symbol for p in s.model.params}
             names.update({l_.name: sp.Symbol(l_.name, real=True) for l_ in s.model.lets})
             f, args = _family_call(rest, names)
-            use = (col, f.name, args)
+            use = FutureRows(col, f.name, tuple(args))
         post, notes = self.posterior()
         res = sample_size(post, s.model, name, width, level=level, max_n=max_n, using=use,
                           data=s.data, sims=sims, seed=seed, kind=kind, progress=progress)
