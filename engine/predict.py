@@ -137,11 +137,12 @@ def _mixture_points(post: Posterior) -> tuple[list[np.ndarray], np.ndarray]:
     """Grid points and normalised weights holding all but `MIX_TAIL` of the mass."""
     thetas: list[list[np.ndarray]] = [[] for _ in post.grid.axes]
     ws = []
-    for idx, theta, w in walk(post):
-        keep = w[0] > 0
-        for k, t in enumerate(theta):
+    for b in walk(post):
+        w0 = b.weights[0]
+        keep = w0 > 0
+        for k, t in enumerate(b.theta):
             thetas[k].append(t[keep])
-        ws.append(w[0][keep])
+        ws.append(w0[keep])
     w = np.concatenate(ws)
     th = [np.concatenate(t) for t in thetas]
     order = np.argsort(w)
