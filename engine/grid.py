@@ -211,6 +211,17 @@ class Axis:
         return (f"{self.name}: {self.lo:.6g} .. {self.hi:.6g}, {self.n} points, "
                 f"{self.scale} scale, {self.rule}")
 
+    def param(self) -> Param:
+        """A continuous parameter with the axis's domain (enough to rebuild the axis
+        with other bounds or counts)."""
+        if math.isfinite(self.dom_lo) and math.isfinite(self.dom_hi):
+            kind = "interval"
+        elif math.isfinite(self.dom_lo):
+            kind = "positive"
+        else:
+            kind = "real"
+        return Param(self.name, kind, self.dom_lo, self.dom_hi)
+
     def spacing(self) -> np.ndarray:
         """Local node spacing in the parameter's units, shape (n,)."""
         if self.discrete or self.n < 2:

@@ -133,8 +133,16 @@ def _chunks(n: int, size: int = 200_000):
         yield slice(a, min(n, a + size))
 
 
-def _mixture_points(post: Posterior) -> tuple[list[np.ndarray], np.ndarray]:
-    """Grid points and normalised weights holding all but `MIX_TAIL` of the mass."""
+@dataclass(frozen=True)
+class _MassPoints:
+    """Grid points and their normalised posterior weights, each shape (k,)."""
+
+    theta: list[np.ndarray]
+    weights: np.ndarray
+
+
+def _mixture_points(post: Posterior) -> _MassPoints:
+    """The grid points holding all but `MIX_TAIL` of the mass (at most `MIX_MAX`)."""
     thetas: list[list[np.ndarray]] = [[] for _ in post.grid.axes]
     ws = []
     for b in walk(post):
@@ -152,7 +160,7 @@ def _mixture_points(post: Posterior) -> tuple[list[np.ndarray], np.ndarray]:
     if len(keep) > MIX_MAX:
         keep = order[-MIX_MAX:]
     w = w[keep]
-    return [t[keep] for t in th], w / w.sum()
+    return _MassPoints([t[keep] for t in th], w / w.sum())
 
 
 def _mixture_sd(w: np.ndarray, means: np.ndarray, sds: np.ndarray, mean: float) -> float:
@@ -214,8 +222,9 @@ class _Mixture:
 def _mixture(post: Posterior, fns: Sequence[ParamFunction], family: str) -> _Mixture:
     """The grid points holding all but `MIX_TAIL` of the mass where the arguments are
     finite."""
-    theta, w = _mixture_points(post)
-    argv = tuple(np.asarray(fn(theta), float) for fn in fns)
+    pts = _mixture_points(post)
+    w = pts.weights
+    argv = tuple(np.asarray(fn(pts.theta), float) for fn in fns)
     ok = np.ones(len(w), bool)
     for a in argv:
         ok &= np.isfinite(a)
@@ -448,10 +457,10 @@ class _Simulation:
         grid = post.grid
         rng = np.random.default_rng(seed)
         # parameter draws: grid points by posterior mass
-        theta, w = _mixture_points(post)
-        pick = rng.choice(len(w), size=sims, p=w)
+        pts = _mixture_points(post)
+        pick = rng.choice(len(pts.weights), size=sims, p=pts.weights)
         arg_fns = [param_function(expand_lets(a, model), params) for a in future.args]
-        self.draw_args = [np.asarray(fn([t[pick] for t in theta]), float) for fn in arg_fns]
+        self.draw_args = [np.asarray(fn([t[pick] for t in pts.theta]), float) for fn in arg_fns]
         # future rows as uniforms mapped through each draw's quantile function
         self.U = rng.random((sims, max_n))
         # the future likelihood, compiled once over a placeholder column

@@ -727,19 +727,8 @@ def refined_grid(grid: Grid, axis: str | None = None) -> Grid:
             n = 2 * a.n
         else:
             n = 2 * a.n - 1
-        axes.append(make_axis(_param_like(a), a.lo, a.hi, n, rule=a.rule, scale=a.scale))
+        axes.append(make_axis(a.param(), a.lo, a.hi, n, rule=a.rule, scale=a.scale))
     return Grid(tuple(axes))
-
-
-def _param_like(a: Axis) -> Param:
-    """A parameter with the axis's domain (enough to rebuild the axis)."""
-    if math.isfinite(a.dom_lo) and math.isfinite(a.dom_hi):
-        kind = "interval"
-    elif math.isfinite(a.dom_lo):
-        kind = "positive"
-    else:
-        kind = "real"
-    return Param(a.name, kind, a.dom_lo, a.dom_hi)
 
 
 def refine(compiled: Compiled, post: Posterior, *, axis: str | None = None,
