@@ -289,7 +289,9 @@ def _with_density_mesh(pred: Predictive) -> Predictive:
 
 
 def _int_quantile(pred: Predictive, q: float, *, low: bool) -> int:
-    """Integer quantile of a discrete predictive by bracketing and bisection."""
+    """A whole number at or beyond the q-quantile of a discrete predictive: the
+    smallest (`low`) or largest component quantile, between which the mixture's
+    quantile lies (0 where no component has a finite one)."""
     with np.errstate(all="ignore"):
         qs = np.asarray(pred.dist().ppf(q), float)
     qs = qs[np.isfinite(qs)]
