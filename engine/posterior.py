@@ -519,6 +519,8 @@ class _Sums:
     ----------
     M : float
         The reference: every sum is ``sum exp(log term - M)``.
+    L : int
+        The nested coarse levels summed besides the fine grid.
     Z : ndarray, shape (levels + 1,)
         The mass on the fine grid and on each nested coarse grid.
     marg : list of ndarray, each (levels + 1, n_axis)
