@@ -216,6 +216,26 @@ def read_csv(path: str) -> CsvTable:
     being row 1) and column where it is.
     """
     name = os.path.basename(path)
+    raw = _read_bytes(path, name)
+    rows = _csv_rows(_decode(raw, name), name)
+    header = _header(rows[0], name)
+    body = rows[1:]
+    if not body:
+        raise DataError(f"file `{name}` has a header but no rows of data")
+    values = np.empty((len(body), len(header)))
+    for k, row in enumerate(body):
+        if len(row.cells) != len(header):
+            raise DataError(f"file `{name}` row {row.line}: {len(row.cells)} cells where the "
+                            f"header has {len(header)}")
+        for j, cell in enumerate(row.cells):
+            values[k, j] = parse_number(cell, f"file `{name}` row {row.line}, column "
+                                              f"`{header[j]}`")
+    cols = {h: _frozen(values[:, j]) for j, h in enumerate(header)}
+    return CsvTable(path, tuple(header), cols, len(body), hashlib.sha256(raw).hexdigest())
+
+
+def _read_bytes(path: str, name: str) -> bytes:
+    """The file's bytes, from a regular file of at most `MAX_FILE_BYTES`."""
     try:
         st_ = os.stat(path)
         if stat.S_ISDIR(st_.st_mode):
@@ -238,7 +258,11 @@ def read_csv(path: str) -> CsvTable:
         raise DataError(f"file `{path}` cannot be read (permission denied)") from None
     except OSError as exc:
         raise DataError(f"file `{path}` cannot be read ({exc.strerror or exc})") from None
-    digest = hashlib.sha256(raw).hexdigest()
+    return raw
+
+
+def _decode(raw: bytes, name: str) -> str:
+    """UTF-8 text (a byte-order mark dropped) with no NUL byte, not blank."""
     try:
         text = raw.decode("utf-8-sig")
     except UnicodeDecodeError as exc:
@@ -248,35 +272,41 @@ def read_csv(path: str) -> CsvTable:
         raise DataError(f"file `{name}` holds NUL bytes; it is not a CSV text file")
     if not text.strip():
         raise DataError(f"file `{name}` is empty")
+    return text
+
+
+@dataclass(frozen=True)
+class _CsvRow:
+    """A non-blank row of a CSV file: its line number (1-based) and its cells."""
+
+    line: int
+    cells: list[str]
+
+
+def _csv_rows(text: str, name: str) -> list[_CsvRow]:
+    """The rows that hold something (blank lines, as a trailing newline, skipped);
+    at least one."""
     try:
         rows = list(csv.reader(io.StringIO(text, newline="")))
     except csv.Error as exc:
         raise DataError(f"file `{name}`: cannot read as CSV ({exc})") from None
-    # skip blank lines (a trailing newline, a blank line at the end)
-    numbered = [(i + 1, r) for i, r in enumerate(rows) if any(c.strip() for c in r)]
+    numbered = [_CsvRow(i + 1, r) for i, r in enumerate(rows) if any(c.strip() for c in r)]
     if not numbered:
         raise DataError(f"file `{name}` is empty")
-    hrow, header = numbered[0]
-    header = [h.strip() for h in header]
+    return numbered
+
+
+def _header(row: _CsvRow, name: str) -> list[str]:
+    """Column names: each a valid name, none twice."""
+    header = [h.strip() for h in row.cells]
     for j, h in enumerate(header):
         if not h:
-            raise DataError(f"file `{name}` row {hrow}, column {j + 1}: empty column name")
+            raise DataError(f"file `{name}` row {row.line}, column {j + 1}: empty column name")
         try:
             check_name(h, "column name")
         except FormulaError as exc:
-            raise DataError(f"file `{name}` row {hrow}, column {j + 1}: {exc}") from None
+            raise DataError(f"file `{name}` row {row.line}, column {j + 1}: {exc}") from None
     dup = {h for h in header if header.count(h) > 1}
     if dup:
-        raise DataError(f"file `{name}` row {hrow}: column `{sorted(dup)[0]}` appears twice")
-    body = numbered[1:]
-    if not body:
-        raise DataError(f"file `{name}` has a header but no rows of data")
-    values = np.empty((len(body), len(header)))
-    for k, (lineno, cells) in enumerate(body):
-        if len(cells) != len(header):
-            raise DataError(f"file `{name}` row {lineno}: {len(cells)} cells where the header "
-                            f"has {len(header)}")
-        for j, cell in enumerate(cells):
-            values[k, j] = parse_number(cell, f"file `{name}` row {lineno}, column `{header[j]}`")
-    cols = {h: _frozen(values[:, j]) for j, h in enumerate(header)}
-    return CsvTable(path, tuple(header), cols, len(body), digest)
+        raise DataError(f"file `{name}` row {row.line}: column `{sorted(dup)[0]}` appears twice")
+    return header

@@ -20,6 +20,7 @@ from .errors import FormulaError, GridError, ModelError, QuadratError
 from .expr import check_name, parse, parse_call
 from .grid import make_axis
 from .model import Let, Likelihood, Model, Prior, compile_model, expand_lets, make_param
+from .predict import FutureRows
 from .refine import AxisSpec
 from .results import Change, Kept
 from .rules import RULES
@@ -311,7 +312,7 @@ def with_prediction(s: State, pr: Prediction) -> State:
     return replace(s, predictions=tuple(p for p in s.predictions if p.name != pr.name) + (pr,))
 
 
-def future_rows(s: State, using: str) -> tuple[str, str, tuple]:
+def future_rows(s: State, using: str) -> FutureRows:
     """``COL ~ FAMILY(args)``: how future rows arise, for `samplesize ... using`."""
     col, _, rest = using.partition("~")
     col = col.strip()
@@ -319,5 +320,5 @@ def future_rows(s: State, using: str) -> tuple[str, str, tuple]:
         raise ModelError("`using` needs COL ~ FAMILY(args)")
     checked_name(col, "column name")
     f, args = family_call(rest, s.model.symbols())
-    return (col, f.name, args)
+    return FutureRows(col, f.name, tuple(args))
 

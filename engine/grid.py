@@ -12,7 +12,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
-from typing import Iterator, Sequence
+from typing import Callable, Iterator, Sequence
 
 import numpy as np
 import scipy.special as sc
@@ -21,10 +21,137 @@ from .errors import GridError
 from .model import Param
 from .rules import RULES, rule as make_rule
 
-SCALES = ("linear", "log", "logit")
 DEFAULT_POINTS = 101
 #: Largest number of points one axis may have.
 MAX_AXIS_POINTS = 10**7
+
+
+# ---------------------------------------------------------------------------
+# scales: one table of the transforms between an axis's coordinate u and the
+# parameter's values on its domain [lo, hi]
+
+@dataclass(frozen=True)
+class Derivatives:
+    """What the chain rule through a scale needs at one u (for curvatures).
+
+    Attributes
+    ----------
+    first, second : float
+        ``d value / du`` and ``d2 value / du2``.
+    logjac_second : float
+        ``d2 log |d value / du| / du2``.
+    """
+
+    first: float
+    second: float
+    logjac_second: float
+
+
+@dataclass(frozen=True)
+class Scale:
+    """One scale of the table `SCALE_TABLE`.
+
+    Attributes
+    ----------
+    name : str
+    to_value : callable
+        ``to_value(u, lo, hi)``: values from coordinates, any shape.
+    to_u : callable
+        ``to_u(v, lo, hi)``: the inverse.
+    logjac : callable
+        ``logjac(u, lo, hi)``: ``log |d value / du|``.
+    derivatives : callable
+        ``derivatives(u, lo, hi)`` at a float `u`: a `Derivatives`, or None where
+        they overflow.
+    limits : (float, float)
+        How far u may reach: beyond these, values round to the domain's edge in
+        double precision (1 - 1e-16 == 1).
+    """
+
+    name: str
+    to_value: Callable
+    to_u: Callable
+    logjac: Callable
+    derivatives: Callable
+    limits: tuple[float, float]
+
+
+def _linear_value(u, lo, hi):
+    return u
+
+
+def _linear_u(v, lo, hi):
+    return v
+
+
+def _linear_logjac(u, lo, hi):
+    return np.zeros_like(u, dtype=float)
+
+
+def _linear_derivatives(u, lo, hi):
+    return Derivatives(1.0, 0.0, 0.0)
+
+
+def _log_value(u, lo, hi):
+    return lo + np.exp(u)
+
+
+def _log_u(v, lo, hi):
+    with np.errstate(all="ignore"):
+        return np.log(v - lo)
+
+
+def _log_logjac(u, lo, hi):
+    return np.array(u, float)
+
+
+def _log_derivatives(u, lo, hi):
+    if u > 700:
+        return None
+    d = math.exp(u)
+    return Derivatives(d, d, 0.0)
+
+
+def _logit_value(u, lo, hi):
+    return lo + (hi - lo) * sc.expit(u)
+
+
+def _logit_u(v, lo, hi):
+    with np.errstate(all="ignore"):
+        return sc.logit((v - lo) / (hi - lo))
+
+
+def _logit_logjac(u, lo, hi):
+    # log[(hi - lo) * s * (1 - s)], s = expit(u), without overflow
+    return math.log(hi - lo) + sc.log_expit(u) + sc.log_expit(-u)
+
+
+def _logit_derivatives(u, lo, hi):
+    s = float(sc.expit(u))
+    first = (hi - lo) * s * (1 - s)
+    return Derivatives(first, first * (1 - 2 * s), -2 * s * (1 - s))
+
+
+#: The scales an axis may use, by name: transforms, log-Jacobians and limits of u.
+SCALE_TABLE: dict[str, Scale] = {
+    "linear": Scale("linear", _linear_value, _linear_u, _linear_logjac, _linear_derivatives,
+                    (-math.inf, math.inf)),
+    "log": Scale("log", _log_value, _log_u, _log_logjac, _log_derivatives, (-700.0, 700.0)),
+    "logit": Scale("logit", _logit_value, _logit_u, _logit_logjac, _logit_derivatives,
+                   (-700.0, 36.0)),
+}
+#: The scales' names, in the table's order.
+SCALES = tuple(SCALE_TABLE)
+
+
+def unconstrained_scale(p: Param) -> str:
+    """The scale on which the domain of continuous `p` becomes the whole real line."""
+    if p.kind == "positive":
+        return "log"
+    if p.kind in ("unit", "interval"):
+        return "logit"
+    return "linear"
+
 
 
 @dataclass(frozen=True)
@@ -84,6 +211,17 @@ class Axis:
         return (f"{self.name}: {self.lo:.6g} .. {self.hi:.6g}, {self.n} points, "
                 f"{self.scale} scale, {self.rule}")
 
+    def param(self) -> Param:
+        """A continuous parameter with the axis's domain (enough to rebuild the axis
+        with other bounds or counts)."""
+        if math.isfinite(self.dom_lo) and math.isfinite(self.dom_hi):
+            kind = "interval"
+        elif math.isfinite(self.dom_lo):
+            kind = "positive"
+        else:
+            kind = "real"
+        return Param(self.name, kind, self.dom_lo, self.dom_hi)
+
     def spacing(self) -> np.ndarray:
         """Local node spacing in the parameter's units, shape (n,)."""
         if self.discrete or self.n < 2:
@@ -91,37 +229,20 @@ class Axis:
         du = np.gradient(self.u)
         return np.abs(du) * np.exp(self.logjac)
 
+    @property
+    def transform(self) -> Scale:
+        """The axis's entry of `SCALE_TABLE` (a discrete axis is its own values)."""
+        return SCALE_TABLE["linear" if self.discrete else self.scale]
+
     def to_value(self, u: np.ndarray) -> np.ndarray:
-        return _to_value(u, self.scale, self.dom_lo, self.dom_hi)
+        return self.transform.to_value(u, self.dom_lo, self.dom_hi)
 
     def to_u(self, v: np.ndarray) -> np.ndarray:
-        return _to_u(np.asarray(v, float), self.scale, self.dom_lo, self.dom_hi)
+        return self.transform.to_u(np.asarray(v, float), self.dom_lo, self.dom_hi)
 
-
-def _to_value(u, scale, dlo, dhi):
-    if scale == "log":
-        return dlo + np.exp(u)
-    if scale == "logit":
-        return dlo + (dhi - dlo) * sc.expit(u)
-    return u
-
-
-def _to_u(v, scale, dlo, dhi):
-    with np.errstate(all="ignore"):
-        if scale == "log":
-            return np.log(v - dlo)
-        if scale == "logit":
-            return sc.logit((v - dlo) / (dhi - dlo))
-    return v
-
-
-def _logjac(u, scale, dlo, dhi):
-    if scale == "log":
-        return np.array(u, float)
-    if scale == "logit":
-        # log[(dhi - dlo) * s * (1 - s)], s = expit(u), without overflow
-        return math.log(dhi - dlo) + sc.log_expit(u) + sc.log_expit(-u)
-    return np.zeros_like(u, dtype=float)
+    def log_jacobian(self, u: np.ndarray) -> np.ndarray:
+        """``log |d value / du|`` at coordinates `u`."""
+        return self.transform.logjac(u, self.dom_lo, self.dom_hi)
 
 
 def default_scale(p: Param, lo: float, hi: float) -> str:
@@ -175,10 +296,11 @@ def make_axis(p: Param, lo: float, hi: float, n: int | None = None, *,
     if scale == "logit" and not (p.bounded and lo > p.lo and hi < p.hi):
         raise GridError(f"grid `{p.name}`: the logit scale needs bounds strictly inside "
                         f"the domain of `{p.name}`")
-    ua, ub = _to_u(np.array([lo, hi]), scale, p.lo, p.hi)
+    tr = SCALE_TABLE[scale]
+    ua, ub = tr.to_u(np.array([lo, hi]), p.lo, p.hi)
     r = make_rule(rule, float(ua), float(ub), n)
-    vals = _to_value(r.nodes, scale, p.lo, p.hi)
-    lj = _logjac(r.nodes, scale, p.lo, p.hi)
+    vals = tr.to_value(r.nodes, p.lo, p.hi)
+    lj = tr.logjac(r.nodes, p.lo, p.hi)
     with np.errstate(divide="ignore"):
         logw = np.log(r.weights) + lj
         coarse = tuple(np.log(c) + lj for c in r.coarse)

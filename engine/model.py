@@ -510,6 +510,20 @@ class LikelihoodPart:
 
 
 @dataclass(frozen=True)
+class Curvature:
+    """Gradient and Hessian of the log posterior in the continuous parameters.
+
+    Attributes
+    ----------
+    gradient : ndarray, shape (d,)
+    hessian : ndarray, shape (d, d)
+    """
+
+    gradient: np.ndarray
+    hessian: np.ndarray
+
+
+@dataclass(frozen=True)
 class Compiled:
     """The model's log-density, ready to evaluate on blocks of grid points.
 
@@ -542,12 +556,12 @@ class Compiled:
     notes: tuple[str, ...]
     free_prior: bool = False
     model: Model = field(default_factory=Model, repr=False, compare=False)
-    #: The log-density as sympy terms ``(expr, column names, column arrays)`` for
-    #: symbolic derivatives; None where a term has no symbolic form.
-    symbolic: tuple | None = field(default=None, repr=False, compare=False)
+    #: The log-density as sympy terms, for symbolic derivatives; None where a term
+    #: has no symbolic form.
+    symbolic: "tuple[SymbolicTerm, ...] | None" = field(default=None, repr=False, compare=False)
     _cache: dict = field(default_factory=dict, repr=False, compare=False)
 
-    def curvature(self, point: dict[str, float]) -> tuple[np.ndarray, np.ndarray] | None:
+    def curvature(self, point: dict[str, float]) -> "Curvature | None":
         """Gradient and Hessian of the log posterior in the continuous parameters
         at `point`, found symbolically (sympy), or None where that is not possible
         (a term without derivatives, or values that are not finite)."""
@@ -564,13 +578,13 @@ class Compiled:
         H = np.zeros((d, d))
         th = [np.array([point[p.name]], float) for p in self.params]
         with np.errstate(all="ignore"):
-            for gfn, hfn, cols in fns:
-                rows = max((len(c) for c in cols), default=1)
-                targs = [t[:, None] for t in th] + [c[None, :] for c in cols]
+            for fn in fns:
+                rows = max((len(c) for c in fn.values), default=1)
+                targs = [t[:, None] for t in th] + [c[None, :] for c in fn.values]
                 gv = [np.sum(np.broadcast_to(np.asarray(f(*targs), float), (1, rows)))
-                      for f in gfn]
+                      for f in fn.grad]
                 hv = [np.sum(np.broadcast_to(np.asarray(f(*targs), float), (1, rows)))
-                      for f in hfn]
+                      for f in fn.hess]
                 g += np.array(gv)
                 k = 0
                 for i in range(d):
@@ -581,7 +595,7 @@ class Compiled:
                         k += 1
         if not (np.all(np.isfinite(g)) and np.all(np.isfinite(H))):
             return None
-        return g, H
+        return Curvature(g, H)
 
     @property
     def dims(self) -> int:
@@ -662,7 +676,17 @@ class Compiled:
 # ---------------------------------------------------------------------------
 # compilation
 
-def _split_conds(conds, pset, dset):
+@dataclass(frozen=True)
+class _Conditions:
+    """A term's support conditions, sorted by what they read."""
+
+    const: tuple            # nothing: each is true or false once and for all
+    data: tuple             # data columns only: checked on every row
+    params: tuple           # parameters only
+    mixed: tuple            # both
+
+
+def _split_conds(conds, pset, dset) -> _Conditions:
     const, data_only, param_only, mixed = [], [], [], []
     for c in conds:
         fs = c.free_symbols
@@ -674,7 +698,7 @@ def _split_conds(conds, pset, dset):
             param_only.append(c)
         else:
             mixed.append(c)
-    return const, data_only, param_only, mixed
+    return _Conditions(tuple(const), tuple(data_only), tuple(param_only), tuple(mixed))
 
 
 class _TooBig(Exception):
@@ -723,149 +747,237 @@ def _row_term(expr, conds, psyms, csyms, colvals) -> RowTerm:
     return RowTerm(fn, tuple(used), columns, cfn)
 
 
-def _reduce_sum(expr, conds, psyms, csyms, colvals):
-    """Split sum_rows expr into sufficient statistics and a row-wise remainder.
+@dataclass(frozen=True)
+class _StatRecipe:
+    """How a sufficient statistic is made: `kind` (see `StatDef`) over the rows of a
+    data expression."""
 
-    Returns ``(reduced, stat_syms, stats, reduced_conds, remainder, remainder_conds)``:
-    `reduced` is an expression in the parameters and the statistic symbols,
-    `remainder` the part (an expression per row) that mixes data and parameters
-    in a way that does not separate. Returns None when nothing separates.
+    kind: str
+    expr: sp.Expr
+
+
+@dataclass(frozen=True)
+class Reduction:
+    """A sum over rows split into sufficient statistics and a row-wise remainder.
+
+    Attributes
+    ----------
+    total : sympy expression
+        In the parameters and the statistic symbols: the reduced sum.
+    stat_symbols : tuple of Symbol
+        ``_s0, _s1, ...``, one per statistic.
+    stats : tuple of float
+        Their values on the rows.
+    conds : tuple
+        Row conditions reduced to conditions on the statistics.
+    remainder : sympy expression
+        The per-row part that mixes data and parameters in a way that does not
+        separate (0 if none).
+    remainder_conds : tuple
+        The row conditions left to check row by row.
+    recipes : tuple of _StatRecipe
+        How each statistic is made from the columns (for new rows).
     """
-    pset, dset = set(psyms), set(csyms)
-    rows = len(colvals[0]) if colvals else 1
-    data_fn_cache: dict = {}
 
-    def data_values(e: sp.Expr) -> np.ndarray:
-        if e not in data_fn_cache:
+    total: sp.Expr
+    stat_symbols: tuple[sp.Symbol, ...]
+    stats: tuple[float, ...]
+    conds: tuple
+    remainder: sp.Expr
+    remainder_conds: tuple
+    recipes: tuple[_StatRecipe, ...]
+
+
+class _Separation:
+    """The working state of `_reduce_sum`: statistics made so far and where each
+    term and condition of the sum went.
+
+    Attributes
+    ----------
+    stats, symbols, recipes : lists
+        Values, symbols and recipes of the statistics, in the order they were made.
+    grouped : dict of sympy expression to list of Symbol
+        A parameter factor and the statistics that multiply it.
+    extra : list
+        Terms in parameters and statistics that do not factor (xlogy of a count).
+    remainder : list
+        Per-row terms that do not separate.
+    const_total, const_terms : float, list
+        The sum of the terms that read no parameter, and those terms.
+    conds, remainder_conds : lists
+        Row conditions reduced to the statistics, and those left row by row.
+    """
+
+    def __init__(self, pset: set, csyms: Sequence[sp.Symbol], colvals: Sequence[np.ndarray]):
+        self.pset, self.dset = pset, set(csyms)
+        self.csyms, self.colvals = csyms, colvals
+        self.rows = len(colvals[0]) if colvals else 1
+        self.stats: list[float] = []
+        self.symbols: list[sp.Symbol] = []
+        self.recipes: list[_StatRecipe] = []
+        self.grouped: dict[sp.Expr, list[sp.Expr]] = {}
+        self.extra: list[sp.Expr] = []
+        self.remainder: list[sp.Expr] = []
+        self.const_total = 0.0
+        self.const_terms: list[sp.Expr] = []
+        self.conds: list = []
+        self.remainder_conds: list = []
+        self._values: dict = {}
+
+    def data_values(self, e: sp.Expr) -> np.ndarray:
+        """A data expression's value on every row, shape (rows,)."""
+        if e not in self._values:
+            csyms = self.csyms
             used = [j for j, s in enumerate(csyms) if s in e.free_symbols]
             cp = _placeholders("c", len(used))
             f = _lambdify(cp, e.xreplace({csyms[j]: cp[k] for k, j in enumerate(used)}))
             with np.errstate(all="ignore"):
-                v = np.asarray(f(*[colvals[j] for j in used]), float)
-            data_fn_cache[e] = np.broadcast_to(v, (rows,))
-        return data_fn_cache[e]
+                v = np.asarray(f(*[self.colvals[j] for j in used]), float)
+            self._values[e] = np.broadcast_to(v, (self.rows,))
+        return self._values[e]
 
+    def stat(self, value: float, kind: str, e: sp.Expr) -> sp.Symbol:
+        """A new statistic of `value`, made as `kind` of `e` over the rows."""
+        s = sp.Symbol(f"_s{len(self.stats)}", real=True)
+        self.stats.append(float(value))
+        self.symbols.append(s)
+        self.recipes.append(_StatRecipe(kind, e))
+        return s
+
+    def group(self, factor: sp.Expr, coefficient: sp.Symbol) -> None:
+        self.grouped.setdefault(factor, []).append(coefficient)
+
+    def has_reduced(self) -> bool:
+        return bool(self.grouped or self.extra or self.conds)
+
+
+def _reduce_sum(expr, conds, psyms, csyms, colvals) -> Reduction | None:
+    """Split sum_rows expr into sufficient statistics and a row-wise remainder,
+    term by term and condition by condition; None when nothing separates."""
     try:
         expanded = _expand_poly(expr, [400])
     except _TooBig:
         return None
-    stats: list[float] = []
-    stat_syms: list[sp.Symbol] = []
-    defs: list[tuple[str, sp.Expr]] = []
-
-    def stat(value: float, kind: str, e: sp.Expr) -> sp.Symbol:
-        s = sp.Symbol(f"_s{len(stats)}", real=True)
-        stats.append(float(value))
-        stat_syms.append(s)
-        defs.append((kind, e))
-        return s
-
-    grouped: dict[sp.Expr, list[sp.Expr]] = {}
-    extra: list[sp.Expr] = []
-    remainder: list[sp.Expr] = []
-    const_total = 0.0
-    const_terms: list[sp.Expr] = []
+    sep = _Separation(set(psyms), csyms, colvals)
     for term in sp.Add.make_args(expanded):
-        fs = term.free_symbols
-        if not fs & pset:
-            # numerically, also for a constant: float() cannot evaluate gammaln(2)
-            v = data_values(term)
-            if not np.all(np.isfinite(v)):
-                remainder.append(term)
-                continue
-            const_total += math.fsum(v)
-            const_terms.append(term)
-            continue
-        if not fs & dset:
-            # summed over the rows: the row count is a statistic too
-            grouped.setdefault(term, []).append(stat(float(rows), "sum", sp.Integer(1)))
-            continue
-        dpart, ppart, mixed = [], [], []
-        for f_ in sp.Mul.make_args(term):
-            ffs = f_.free_symbols
-            if not ffs & dset:
-                ppart.append(f_)
-            elif not ffs & pset:
-                dpart.append(f_)
-            else:
-                mixed.append(f_)
-        if not mixed:
-            v = data_values(sp.Mul(*dpart))
-            if np.all(np.isfinite(v)):
-                grouped.setdefault(sp.Mul(*ppart), []).append(
-                    stat(math.fsum(v), "sum", sp.Mul(*dpart)))
-                continue
-        elif len(mixed) == 1 and isinstance(mixed[0], (S.xlogy, S.xlog1py)) and not dpart:
-            # sum_i xlogy(a_i, b) = xlogy(sum_i a_i, b) when every a_i >= 0
-            a, b = mixed[0].args
-            fn = type(mixed[0])
-            if a.free_symbols <= dset and not (b.free_symbols & dset):
-                v = data_values(a)
-                if np.all(np.isfinite(v)) and np.all(v >= 0):
-                    extra.append(sp.Mul(*ppart) * fn(stat(math.fsum(v), "sum+", a), b))
-                    continue
-            elif fn is S.xlogy and a.free_symbols <= dset and b.is_Mul:
-                # xlogy(a, b_theta * b_data) = xlogy(a, b_theta) + a log(b_data) where
-                # b_data > 0 and a >= 0 on every row (a rate times an exposure)
-                bp = sp.Mul(*[f_ for f_ in b.args if not (f_.free_symbols & dset)])
-                bd = sp.Mul(*[f_ for f_ in b.args if f_.free_symbols & dset])
-                if not (bd.free_symbols & pset) and bp != 1:
-                    va, vb = data_values(a), data_values(bd)
-                    if np.all(np.isfinite(va)) and np.all(va >= 0) and \
-                            np.all(np.isfinite(vb)) and np.all(vb > 0):
-                        extra.append(sp.Mul(*ppart) * fn(stat(math.fsum(va), "sum+", a), bp))
-                        grouped.setdefault(sp.Mul(*ppart), []).append(
-                            stat(math.fsum(va * np.log(vb)), "sum", a * sp.log(bd)))
-                        continue
-            elif not (a.free_symbols & dset) and b.free_symbols <= dset:
-                # xlogy(a_theta, b) = a_theta log(b) where b > 0 on every row (and
-                # xlog1py(a_theta, b) = a_theta log1p(b) where b > -1): a shape parameter
-                vb = data_values(b)
-                ok = np.all(np.isfinite(vb)) and (np.all(vb > 0) if fn is S.xlogy
-                                                  else np.all(vb > -1))
-                if ok:
-                    logs = np.log(vb) if fn is S.xlogy else np.log1p(vb)
-                    e = sp.log(b) if fn is S.xlogy else S.log1p(b)
-                    grouped.setdefault(sp.Mul(*ppart) * a, []).append(
-                        stat(math.fsum(logs), "sum", e))
-                    continue
-        remainder.append(term)
-    red_conds, rem_conds = [], []
+        if not _separate_term(term, sep):
+            sep.remainder.append(term)
     for c in conds:
-        if not isinstance(c, sp.core.relational.Relational):
-            rem_conds.append(c)
-            continue
-        lhs, rhs = c.lhs, c.rhs
-        if rhs == 0 and lhs.is_Mul and lhs.free_symbols & dset and lhs.free_symbols & pset:
-            # theta_part * data_part OP 0 with the data part > 0 on every row is
-            # theta_part * min(data part) OP 0 (a rate times an exposure >= 0)
-            tp_ = sp.Mul(*[f_ for f_ in lhs.args if not (f_.free_symbols & dset)])
-            dp_ = sp.Mul(*[f_ for f_ in lhs.args if f_.free_symbols & dset])
-            if not (dp_.free_symbols & pset):
-                v = data_values(dp_)
-                if np.all(np.isfinite(v)) and np.all(v > 0):
-                    s = stat(float(np.min(v)), "min", dp_)
-                    red_conds.append(c.func(tp_ * s, 0))
-                    continue
-        ld, rd = lhs.free_symbols <= dset, rhs.free_symbols <= dset
-        lp, rp = not (lhs.free_symbols & dset), not (rhs.free_symbols & dset)
-        if ld and rp:
-            v = data_values(lhs)
-        elif rd and lp:
-            v = data_values(rhs)
-        else:
-            rem_conds.append(c)
-            continue
-        # data < param for every row: the largest data value decides (and so on)
-        big = isinstance(c, (sp.StrictLessThan, sp.LessThan)) == ld
-        side = lhs if ld else rhs
-        s = stat(float(np.max(v) if big else np.min(v)), "max" if big else "min", side)
-        red_conds.append(c.func(s, rhs) if ld else c.func(lhs, s))
-    if not grouped and not extra and not red_conds:
+        _separate_cond(c, sep)
+    if not sep.has_reduced():
         return None
-    total = sp.Add(*[sp.Add(*coefs) * b for b, coefs in grouped.items()], *extra)
-    total = total + stat(const_total, "sum", sp.Add(*const_terms))
-    return total, stat_syms, stats, red_conds, sp.Add(*remainder), rem_conds, defs
+    total = sp.Add(*[sp.Add(*coefs) * b for b, coefs in sep.grouped.items()], *sep.extra)
+    total = total + sep.stat(sep.const_total, "sum", sp.Add(*sep.const_terms))
+    return Reduction(total, tuple(sep.symbols), tuple(sep.stats), tuple(sep.conds),
+                     sp.Add(*sep.remainder), tuple(sep.remainder_conds), tuple(sep.recipes))
+
+
+def _separate_term(term: sp.Expr, sep: _Separation) -> bool:
+    """Reduce one term of the expanded sum to statistics; False where it does not
+    separate (it is then summed row by row)."""
+    pset, dset = sep.pset, sep.dset
+    fs = term.free_symbols
+    if not fs & pset:
+        # numerically, also for a constant: float() cannot evaluate gammaln(2)
+        v = sep.data_values(term)
+        if not np.all(np.isfinite(v)):
+            return False
+        sep.const_total += math.fsum(v)
+        sep.const_terms.append(term)
+        return True
+    if not fs & dset:
+        # summed over the rows: the row count is a statistic too
+        sep.group(term, sep.stat(float(sep.rows), "sum", sp.Integer(1)))
+        return True
+    dpart, ppart, mixed = [], [], []
+    for f_ in sp.Mul.make_args(term):
+        ffs = f_.free_symbols
+        if not ffs & dset:
+            ppart.append(f_)
+        elif not ffs & pset:
+            dpart.append(f_)
+        else:
+            mixed.append(f_)
+    if not mixed:
+        v = sep.data_values(sp.Mul(*dpart))
+        if np.all(np.isfinite(v)):
+            sep.group(sp.Mul(*ppart), sep.stat(math.fsum(v), "sum", sp.Mul(*dpart)))
+            return True
+        return False
+    if len(mixed) == 1 and isinstance(mixed[0], (S.xlogy, S.xlog1py)) and not dpart:
+        return _separate_xlog(mixed[0], sp.Mul(*ppart), sep)
+    return False
+
+
+def _separate_xlog(f: sp.Expr, factor: sp.Expr, sep: _Separation) -> bool:
+    """``factor * xlogy(a, b)`` (or xlog1py) summed over rows, where the rows allow."""
+    pset, dset = sep.pset, sep.dset
+    a, b = f.args
+    fn = type(f)
+    if a.free_symbols <= dset and not (b.free_symbols & dset):
+        # sum_i xlogy(a_i, b) = xlogy(sum_i a_i, b) when every a_i >= 0
+        v = sep.data_values(a)
+        if np.all(np.isfinite(v)) and np.all(v >= 0):
+            sep.extra.append(factor * fn(sep.stat(math.fsum(v), "sum+", a), b))
+            return True
+    elif fn is S.xlogy and a.free_symbols <= dset and b.is_Mul:
+        # xlogy(a, b_theta * b_data) = xlogy(a, b_theta) + a log(b_data) where
+        # b_data > 0 and a >= 0 on every row (a rate times an exposure)
+        bp = sp.Mul(*[f_ for f_ in b.args if not (f_.free_symbols & dset)])
+        bd = sp.Mul(*[f_ for f_ in b.args if f_.free_symbols & dset])
+        if not (bd.free_symbols & pset) and bp != 1:
+            va, vb = sep.data_values(a), sep.data_values(bd)
+            if np.all(np.isfinite(va)) and np.all(va >= 0) and \
+                    np.all(np.isfinite(vb)) and np.all(vb > 0):
+                sep.extra.append(factor * fn(sep.stat(math.fsum(va), "sum+", a), bp))
+                sep.group(factor, sep.stat(math.fsum(va * np.log(vb)), "sum", a * sp.log(bd)))
+                return True
+    elif not (a.free_symbols & dset) and b.free_symbols <= dset:
+        # xlogy(a_theta, b) = a_theta log(b) where b > 0 on every row (and
+        # xlog1py(a_theta, b) = a_theta log1p(b) where b > -1): a shape parameter
+        vb = sep.data_values(b)
+        ok = np.all(np.isfinite(vb)) and (np.all(vb > 0) if fn is S.xlogy else np.all(vb > -1))
+        if ok:
+            logs = np.log(vb) if fn is S.xlogy else np.log1p(vb)
+            e = sp.log(b) if fn is S.xlogy else S.log1p(b)
+            sep.group(factor * a, sep.stat(math.fsum(logs), "sum", e))
+            return True
+    return False
+
+
+def _separate_cond(c, sep: _Separation) -> None:
+    """A row condition as a condition on a statistic (the largest or smallest data
+    value decides), or left to be checked row by row."""
+    pset, dset = sep.pset, sep.dset
+    if not isinstance(c, sp.core.relational.Relational):
+        sep.remainder_conds.append(c)
+        return
+    lhs, rhs = c.lhs, c.rhs
+    if rhs == 0 and lhs.is_Mul and lhs.free_symbols & dset and lhs.free_symbols & pset:
+        # theta_part * data_part OP 0 with the data part > 0 on every row is
+        # theta_part * min(data part) OP 0 (a rate times an exposure >= 0)
+        tp_ = sp.Mul(*[f_ for f_ in lhs.args if not (f_.free_symbols & dset)])
+        dp_ = sp.Mul(*[f_ for f_ in lhs.args if f_.free_symbols & dset])
+        if not (dp_.free_symbols & pset):
+            v = sep.data_values(dp_)
+            if np.all(np.isfinite(v)) and np.all(v > 0):
+                s = sep.stat(float(np.min(v)), "min", dp_)
+                sep.conds.append(c.func(tp_ * s, 0))
+                return
+    ld, rd = lhs.free_symbols <= dset, rhs.free_symbols <= dset
+    lp, rp = not (lhs.free_symbols & dset), not (rhs.free_symbols & dset)
+    if ld and rp:
+        v = sep.data_values(lhs)
+    elif rd and lp:
+        v = sep.data_values(rhs)
+    else:
+        sep.remainder_conds.append(c)
+        return
+    # data < param for every row: the largest data value decides (and so on)
+    big = isinstance(c, (sp.StrictLessThan, sp.LessThan)) == ld
+    side = lhs if ld else rhs
+    s = sep.stat(float(np.max(v) if big else np.min(v)), "max" if big else "min", side)
+    sep.conds.append(c.func(s, rhs) if ld else c.func(lhs, s))
 
 
 def _sum_terms(expr, conds, params, csyms, colvals, *, reduce: bool = True) -> list[Term]:
@@ -874,34 +986,30 @@ def _sum_terms(expr, conds, params, csyms, colvals, *, reduce: bool = True) -> l
     red = _reduce_sum(expr, conds, psyms, csyms, colvals) if reduce else None
     if red is None:
         return [_row_term(expr, conds, psyms, csyms, colvals)]
-    total, ssyms, stats, rconds, rem, rem_conds, defs = red
-    fallback = _row_term(expr - rem, [c for c in conds if c not in rem_conds], psyms, csyms,
-                         colvals)
-    used = [i for i, s in enumerate(psyms) if s in total.free_symbols or
-            any(s in c.free_symbols for c in rconds)]
+    fallback = _row_term(expr - red.remainder, [c for c in conds if c not in red.remainder_conds],
+                         psyms, csyms, colvals)
+    used = [i for i, s in enumerate(psyms) if s in red.total.free_symbols or
+            any(s in c.free_symbols for c in red.conds)]
     tp = _placeholders("t", len(used))
     sub = {psyms[i]: tp[k] for k, i in enumerate(used)}
-    fn = _lambdify(tp + ssyms, total.xreplace(sub))
-    cfn = _lambdify(tp + ssyms, sp.And(*rconds).xreplace(sub)) if rconds else None
+    ssyms = list(red.stat_symbols)
+    fn = _lambdify(tp + ssyms, red.total.xreplace(sub))
+    cfn = _lambdify(tp + ssyms, sp.And(*red.conds).xreplace(sub)) if red.conds else None
     stat_fns = []
-    for kind, e in defs:
-        ucols = [j for j, sy in enumerate(csyms) if sy in e.free_symbols]
+    for r in red.recipes:
+        ucols = [j for j, sy in enumerate(csyms) if sy in r.expr.free_symbols]
         cp = _placeholders("c", len(ucols))
-        stat_fns.append(StatDef(kind, _lambdify(cp, e.xreplace(
+        stat_fns.append(StatDef(r.kind, _lambdify(cp, r.expr.xreplace(
             {csyms[j]: cp[k] for k, j in enumerate(ucols)})), tuple(csyms[j].name for j in ucols)))
-    out: list[Term] = [ReducedTerm(fn, tuple(used), tuple(stats), cfn, fallback, tuple(stat_fns))]
-    if rem != 0 or rem_conds:
-        out.append(_row_term(rem, rem_conds, psyms, csyms, colvals))
+    out: list[Term] = [ReducedTerm(fn, tuple(used), red.stats, cfn, fallback, tuple(stat_fns))]
+    if red.remainder != 0 or red.remainder_conds:
+        out.append(_row_term(red.remainder, list(red.remainder_conds), psyms, csyms, colvals))
     return out
 
 
 def _param_term(expr, conds, params) -> ParamTerm:
     return ParamTerm(param_function(expr, params),
                      param_function(sp.And(*conds), params) if conds else None)
-
-
-def _support_text(f: fam.Family) -> str:
-    return f.support
 
 
 def _check_data_conds(conds, csyms, colvals, where: str, f: fam.Family | None, names):
@@ -921,9 +1029,35 @@ def _check_data_conds(conds, csyms, colvals, where: str, f: fam.Family | None, n
             raise DataError(f"{where}: column `{col}` row {r + 1} value {val:g} is outside {rule}")
 
 
+@dataclass(frozen=True)
+class SymbolicTerm:
+    """One term of the log-density in sympy, for symbolic derivatives: `expr`
+    summed over the rows of the named columns (no columns: counted once)."""
+
+    expr: sp.Expr
+    columns: tuple[str, ...] = ()
+    values: tuple[np.ndarray, ...] = ()
+
+
+class _Gathered:
+    """What compilation gathers, in the model's order: prior terms and constant,
+    notes for `show model`, reasons the prior is improper, symbolic terms."""
+
+    def __init__(self):
+        self.prior_terms: list[Term] = []
+        self.prior_const = 0.0
+        self.notes: list[str] = []
+        self.improper: list[str] = []
+        self.symbolic: list[SymbolicTerm] = []
+        self.symbolic_ok = True
+
+
 def compile_model(model: Model, data: DataSet, *, reduce: bool = True,
                   rows_from: dict[str, int] | None = None) -> Compiled:
     """Compile `model` over `data` into a vectorised log-density.
+
+    The priors are compiled first (`_compile_priors`), then each likelihood
+    (`_compile_likelihood`).
 
     Parameters
     ----------
@@ -943,171 +1077,248 @@ def compile_model(model: Model, data: DataSet, *, reduce: bool = True,
     params = model.params
     if not params:
         raise ModelError("no parameters; declare one with `param NAME ...`")
-    psyms = [p.symbol for p in params]
-    pset = set(psyms)
-    notes: list[str] = []
-    improper: list[str] = []
-    prior_terms: list[Term] = []
-    prior_const = 0.0
+    got = _Gathered()
+    free = _compile_priors(model, got)
+    parts = tuple(_compile_likelihood(lk, model, data, got, reduce=reduce, rows_from=rows_from)
+                  for lk in model.likelihoods)
+    return Compiled(tuple(params), tuple(got.prior_terms), got.prior_const, parts,
+                    not got.improper, tuple(got.improper), tuple(got.notes), free, model,
+                    tuple(got.symbolic) if got.symbolic_ok else None)
+
+
+# -- the prior ------------------------------------------------------------------
+
+def _prior_expr(e: sp.Basic, model: Model, what: str) -> sp.Basic:
+    """A prior's argument or free term with lets expanded: parameters and numbers only."""
+    e = expand_lets(e, model)
+    extra = {s.name for s in e.free_symbols} - {p.name for p in model.params}
+    if extra:
+        raise ModelError(f"{what} uses `{sorted(extra)[0]}`, which is not a parameter; "
+                         "priors take parameters and numbers only")
+    return e
+
+
+def _compile_priors(model: Model, got: _Gathered) -> bool:
+    """Every parameter's prior (uniform on a bounded domain without one), then the
+    free ``prior log`` terms; whether there are free terms."""
     named = {pr.target: pr for pr in model.priors if pr.target is not None}
     free_priors = [pr for pr in model.priors if pr.target is None]
-    symbolic: list = []
-    symbolic_ok = True
-
-    def lets_out(e, what):
-        e = expand_lets(e, model)
-        extra = {s.name for s in e.free_symbols} - {p.name for p in params}
-        if extra:
-            raise ModelError(f"{what} uses `{sorted(extra)[0]}`, which is not a parameter; "
-                             "priors take parameters and numbers only")
-        return e
-
-    for p in params:
+    for p in model.params:
         pr = named.get(p.name)
-        if pr is None:
-            lu = p.log_uniform()
-            if lu is None:
-                improper.append(f"`{p.name}` has no prior and an unbounded domain: "
-                                "a flat improper prior")
-            else:
-                prior_const += lu
+        if pr is not None:
+            _named_prior(p, pr, model, got)
             continue
-        f = fam.get(pr.family)
-        args = tuple(lets_out(a, f"prior of `{p.name}`") for a in pr.args)
-        if f.discrete and not p.discrete:
-            raise ModelError(f"prior of `{p.name}` is `{f.name}`, a discrete distribution, "
-                             f"but `{p.name}` is continuous")
-        term = fam.density(f.name, p.symbol, args)
-        const, _, pconds, mixed = _split_conds(term.conds, pset, set())
-        pconds = pconds + mixed
-        for c in const:
-            if c in (sp.false, False):
-                raise ModelError(f"prior of `{p.name}`: `{f.name}` needs {'; '.join(f.constraints)}")
-        prior_terms.append(_param_term(term.expr, pconds, params))
-        symbolic.append((term.expr, (), ()))
-        # truncation to the domain, renormalised
-        arg_const = all(not a.free_symbols for a in args)
-        needs = p.discrete or math.isfinite(p.lo) or math.isfinite(p.hi)
-        if needs and arg_const:
-            argv = [float(a) for a in args]
-            with np.errstate(all="ignore"):
-                mass = float(_domain_mass(f, argv, p.lo, p.hi, p.values if p.discrete else None))
-            if not mass > 0 or not math.isfinite(mass):
-                raise ModelError(f"prior of `{p.name}` puts no mass on its domain "
-                                 f"({p.describe()})")
-            prior_const -= math.log(mass)
-            if p.discrete:
-                if f.discrete and abs(mass - 1) > 1e-12:
-                    notes.append(f"prior of `{p.name}` is truncated to its {len(p.values)} values "
-                                 f"and renormalised: {1 - mass:.3g} of its mass was cut")
-                elif not f.discrete:
-                    notes.append(f"prior of `{p.name}` is `{f.name}` read at its "
-                                 f"{len(p.values)} values and renormalised to sum to 1")
-            elif abs(mass - 1) > 1e-12:
-                notes.append(f"prior of `{p.name}` is truncated to its domain and renormalised: "
-                             f"{1 - mass:.3g} of its mass was cut")
-        elif needs:
-            symbolic_ok = False
-            prior_terms.append(TruncationTerm(
-                f.name, tuple(param_function(a, params) for a in args), p.lo, p.hi,
-                p.values if p.discrete else None))
-            notes.append(f"prior of `{p.name}` depends on other parameters; its truncation to "
-                         "the domain is renormalised at every grid point")
-
+        lu = p.log_uniform()
+        if lu is None:
+            got.improper.append(f"`{p.name}` has no prior and an unbounded domain: "
+                                "a flat improper prior")
+        else:
+            got.prior_const += lu
     for pr in free_priors:
-        e = lets_out(pr.log, "`prior log`")
-        prior_terms.append(_param_term(e, [], params))
-        symbolic.append((e, (), ()))
-    if free_priors and not all(p.bounded or p.discrete for p in params):
-        unb = [p.name for p in params if not (p.bounded or p.discrete)]
-        improper.append(f"a free `prior log` term with unbounded `{unb[0]}`: quadrat cannot "
-                        "normalise it")
+        e = _prior_expr(pr.log, model, "`prior log`")
+        got.prior_terms.append(_param_term(e, [], model.params))
+        got.symbolic.append(SymbolicTerm(e))
+    if free_priors and not all(p.bounded or p.discrete for p in model.params):
+        unb = [p.name for p in model.params if not (p.bounded or p.discrete)]
+        got.improper.append(f"a free `prior log` term with unbounded `{unb[0]}`: quadrat cannot "
+                            "normalise it")
+    return bool(free_priors)
 
-    # likelihoods
+
+def _named_prior(p: Param, pr: Prior, model: Model, got: _Gathered) -> None:
+    """``prior NAME ~ FAMILY(args)``: its log density, truncated to the domain."""
+    params = model.params
+    f = fam.get(pr.family)
+    args = tuple(_prior_expr(a, model, f"prior of `{p.name}`") for a in pr.args)
+    if f.discrete and not p.discrete:
+        raise ModelError(f"prior of `{p.name}` is `{f.name}`, a discrete distribution, "
+                         f"but `{p.name}` is continuous")
+    term = fam.density(f.name, p.symbol, args)
+    conds = _split_conds(term.conds, {q.symbol for q in params}, set())
+    for c in conds.const:
+        if c in (sp.false, False):
+            raise ModelError(f"prior of `{p.name}`: `{f.name}` needs {'; '.join(f.constraints)}")
+    got.prior_terms.append(_param_term(term.expr, conds.params + conds.mixed, params))
+    got.symbolic.append(SymbolicTerm(term.expr))
+    if not (p.discrete or math.isfinite(p.lo) or math.isfinite(p.hi)):
+        return
+    if all(not a.free_symbols for a in args):
+        _truncate_constant(p, f, args, got)
+        return
+    got.symbolic_ok = False
+    got.prior_terms.append(TruncationTerm(
+        f.name, tuple(param_function(a, params) for a in args), p.lo, p.hi,
+        p.values if p.discrete else None))
+    got.notes.append(f"prior of `{p.name}` depends on other parameters; its truncation to "
+                     "the domain is renormalised at every grid point")
+
+
+def _truncate_constant(p: Param, f: fam.Family, args: tuple, got: _Gathered) -> None:
+    """Renormalise a prior with constant arguments to the domain of `p`, and say what
+    was cut."""
+    argv = [float(a) for a in args]
+    with np.errstate(all="ignore"):
+        mass = float(_domain_mass(f, argv, p.lo, p.hi, p.values if p.discrete else None))
+    if not mass > 0 or not math.isfinite(mass):
+        raise ModelError(f"prior of `{p.name}` puts no mass on its domain "
+                         f"({p.describe()})")
+    got.prior_const -= math.log(mass)
+    if p.discrete:
+        if f.discrete and abs(mass - 1) > 1e-12:
+            got.notes.append(f"prior of `{p.name}` is truncated to its {len(p.values)} values "
+                             f"and renormalised: {1 - mass:.3g} of its mass was cut")
+        elif not f.discrete:
+            got.notes.append(f"prior of `{p.name}` is `{f.name}` read at its "
+                             f"{len(p.values)} values and renormalised to sum to 1")
+    elif abs(mass - 1) > 1e-12:
+        got.notes.append(f"prior of `{p.name}` is truncated to its domain and renormalised: "
+                         f"{1 - mass:.3g} of its mass was cut")
+
+
+# -- the likelihoods ------------------------------------------------------------------
+
+@dataclass(frozen=True)
+class _Piece:
+    """One density of a likelihood over the rows that `mask` selects (None: all);
+    a censored likelihood has an observed and a censored piece."""
+
+    term: fam.Term
+    mask: np.ndarray | None
+    label: str
+
+
+@dataclass(frozen=True)
+class _LikelihoodForm:
+    """A likelihood as densities, before any row is read.
+
+    Attributes
+    ----------
+    key : str
+        The column, or the formula of a free term.
+    where : str
+        How error messages name it.
+    family : Family or None
+        None for a free ``likelihood log`` term.
+    pieces : tuple of _Piece
+    columns : frozenset of Symbol
+        The data columns it reads.
+    """
+
+    key: str
+    where: str
+    family: fam.Family | None
+    pieces: tuple[_Piece, ...]
+    columns: frozenset
+
+
+def _likelihood_form(lk: Likelihood, model: Model, data: DataSet) -> _LikelihoodForm:
+    key = lk.column if lk.column is not None else (lk.text or "likelihood log")
+    where = f"likelihood `{key}`"
+    dset = {sp.Symbol(n, real=True) for n in data.names}
+    if lk.column is None:
+        e = expand_lets(lk.log, model)
+        return _LikelihoodForm(key, where, None, (_Piece(fam.Term(e, ()), None, ""),),
+                               frozenset(e.free_symbols & dset))
+    f = fam.get(lk.family)
+    if lk.column not in data:
+        raise DataError(f"{where}: no data column `{lk.column}`")
+    ysym = sp.Symbol(lk.column, real=True)
+    args = tuple(expand_lets(a, model) for a in lk.args)
+    used = {ysym} | set().union(*[a.free_symbols for a in args]) & dset
+    if not lk.censor:
+        return _LikelihoodForm(key, where, f, (_Piece(fam.density(f.name, ysym, args), None, ""),),
+                               frozenset(used))
+    if lk.censor not in data:
+        raise DataError(f"{where}: no data column `{lk.censor}` for censoring flags")
+    flags = data.values(lk.censor)
+    bad = np.flatnonzero((flags != 0) & (flags != 1))
+    if bad.size:
+        raise DataError(f"{where}: column `{lk.censor}` row {bad[0] + 1} value "
+                        f"{flags[bad[0]]:g}: censoring flags must be 0 or 1")
+    pieces = (_Piece(fam.density(f.name, ysym, args), flags == 0, "observed"),
+              _Piece(fam.density(f.name, ysym, args, survival=True), flags == 1, "censored"))
+    return _LikelihoodForm(key, where, f, pieces,
+                           frozenset(used | {sp.Symbol(lk.censor, real=True)}))
+
+
+def _row_count(form: _LikelihoodForm, model: Model, data: DataSet) -> int:
+    """The likelihood's rows, once its names are known and its columns agree in length."""
+    known = {p.name for p in model.params} | set(data.names)
+    unknown = set()
+    for piece in form.pieces:
+        unknown |= {s.name for s in piece.term.expr.free_symbols} - known
+    if unknown:
+        raise ModelError(f"{form.where} uses unknown `{sorted(unknown)[0]}`")
+    lengths = {s.name: data.get(s.name).rows for s in form.columns}
+    if len(set(lengths.values())) > 1:
+        shown = ", ".join(f"`{k}` {v} rows" for k, v in sorted(lengths.items()))
+        raise DataError(f"{form.where}: its columns differ in length ({shown})")
+    return next(iter(lengths.values())) if lengths else 0
+
+
+def _compile_likelihood(lk: Likelihood, model: Model, data: DataSet, got: _Gathered, *,
+                        reduce: bool, rows_from: dict[str, int] | None) -> LikelihoodPart:
+    """One likelihood's terms over its rows (from `rows_from[key]` on, if given)."""
+    form = _likelihood_form(lk, model, data)
+    nrows = _row_count(form, model, data)
+    start = (rows_from or {}).get(form.key, 0)
+    terms: list[Term] = []
+    for piece in form.pieces:
+        if not form.columns:
+            # a term that reads no rows counts once, never again for new rows
+            if rows_from is None or form.key not in rows_from:
+                conds = _split_conds(piece.term.conds, {p.symbol for p in model.params},
+                                     {sp.Symbol(n, real=True) for n in data.names})
+                terms.append(_param_term(piece.term.expr, conds.params + conds.mixed,
+                                         model.params))
+                got.symbolic.append(SymbolicTerm(piece.term.expr))
+            continue
+        sel = np.arange(nrows) >= start
+        if piece.mask is not None:
+            sel &= piece.mask
+        if sel.any():
+            terms.extend(_piece_terms(piece, form, model, data, sel, nrows, got, reduce=reduce))
+    return LikelihoodPart(form.key, tuple(terms), nrows)
+
+
+def _piece_terms(piece: _Piece, form: _LikelihoodForm, model: Model, data: DataSet,
+                 sel: np.ndarray, nrows: int, got: _Gathered, *, reduce: bool) -> list[Term]:
+    """The terms of one piece summed over the rows `sel` selects."""
+    params = model.params
     cols = list(data.names)
     csyms = [sp.Symbol(n, real=True) for n in cols]
-    dset = set(csyms)
-    parts: list[LikelihoodPart] = []
-    for lk in model.likelihoods:
-        key = lk.column if lk.column is not None else (lk.text or "likelihood log")
-        where = f"likelihood `{key}`"
-        if lk.column is not None:
-            f = fam.get(lk.family)
-            if lk.column not in data:
-                raise DataError(f"{where}: no data column `{lk.column}`")
-            ysym = sp.Symbol(lk.column, real=True)
-            args = tuple(expand_lets(a, model) for a in lk.args)
-            pieces = []
-            if lk.censor:
-                if lk.censor not in data:
-                    raise DataError(f"{where}: no data column `{lk.censor}` for censoring flags")
-                flags = data.values(lk.censor)
-                bad = np.flatnonzero((flags != 0) & (flags != 1))
-                if bad.size:
-                    raise DataError(f"{where}: column `{lk.censor}` row {bad[0] + 1} value "
-                                    f"{flags[bad[0]]:g}: censoring flags must be 0 or 1")
-                pieces.append((fam.density(f.name, ysym, args), flags == 0, "observed"))
-                pieces.append((fam.density(f.name, ysym, args, survival=True), flags == 1,
-                               "censored"))
-            else:
-                pieces.append((fam.density(f.name, ysym, args), None, ""))
-            used_cols = {ysym} | set().union(*[a.free_symbols for a in args]) & dset
-            if lk.censor:
-                used_cols.add(sp.Symbol(lk.censor, real=True))
-        else:
-            f = None
-            e = expand_lets(lk.log, model)
-            pieces = [(fam.Term(e, ()), None, "")]
-            used_cols = e.free_symbols & dset
-        unknown = set()
-        for t, _, _ in pieces:
-            unknown |= {s.name for s in t.expr.free_symbols} - {s.name for s in psyms} - set(cols)
-        if unknown:
-            raise ModelError(f"{where} uses unknown `{sorted(unknown)[0]}`")
-        lengths = {s.name: data.get(s.name).rows for s in used_cols}
-        if len(set(lengths.values())) > 1:
-            shown = ", ".join(f"`{k}` {v} rows" for k, v in sorted(lengths.items()))
-            raise DataError(f"{where}: its columns differ in length ({shown})")
-        nrows = next(iter(lengths.values())) if lengths else 0
-        start = (rows_from or {}).get(key, 0)
-        terms: list[Term] = []
-        for t, mask, label in pieces:
-            sel = np.arange(nrows) >= start
-            if mask is not None:
-                sel &= mask
-            if not used_cols:
-                # a term that reads no rows counts once, never again for new rows
-                const, _, pconds, mixed = _split_conds(t.conds, pset, dset)
-                if rows_from is None or key not in rows_from:
-                    terms.append(_param_term(t.expr, pconds + mixed, params))
-                    symbolic.append((t.expr, (), ()))
-                continue
-            # columns of another length are not read by this term (its own were
-            # checked to agree above): stand-ins keep the row axis aligned
-            colvals = [np.ascontiguousarray(data.values(n)[sel])
-                       if data.get(n).rows == nrows else np.zeros(int(sel.sum()))
-                       for n in cols]
-            if not sel.any():
-                continue
-            const, donly, pconds, mixed = _split_conds(t.conds, pset, dset)
-            for c in const:
-                if c in (sp.false, False):
-                    raise ModelError(f"{where}: `{f.name if f else 'term'}` needs "
-                                     f"{'; '.join(f.constraints) if f else str(c)}")
-            _check_data_conds(donly, csyms, colvals, where, f, cols)
-            terms.extend(_sum_terms(t.expr, mixed, params, csyms, colvals, reduce=reduce))
-            rc = tuple(n for n, cs in zip(cols, csyms) if cs in t.expr.free_symbols)
-            symbolic.append((t.expr, rc, tuple(colvals[cols.index(n)] for n in rc)))
-            if pconds:
-                terms.append(_param_term(sp.Integer(0), pconds, params))
-        parts.append(LikelihoodPart(key, tuple(terms), nrows))
-
-    return Compiled(tuple(params), tuple(prior_terms), prior_const, tuple(parts),
-                    not improper, tuple(improper), tuple(notes), bool(free_priors), model,
-                    tuple(symbolic) if symbolic_ok else None)
+    # columns of another length are not read by this term (its own were
+    # checked to agree): stand-ins keep the row axis aligned
+    colvals = [np.ascontiguousarray(data.values(n)[sel])
+               if data.get(n).rows == nrows else np.zeros(int(sel.sum()))
+               for n in cols]
+    t, f = piece.term, form.family
+    conds = _split_conds(t.conds, {p.symbol for p in params}, set(csyms))
+    for c in conds.const:
+        if c in (sp.false, False):
+            raise ModelError(f"{form.where}: `{f.name if f else 'term'}` needs "
+                             f"{'; '.join(f.constraints) if f else str(c)}")
+    _check_data_conds(conds.data, csyms, colvals, form.where, f, cols)
+    terms = _sum_terms(t.expr, conds.mixed, params, csyms, colvals, reduce=reduce)
+    rc = tuple(n for n, cs in zip(cols, csyms) if cs in t.expr.free_symbols)
+    got.symbolic.append(SymbolicTerm(t.expr, rc, tuple(colvals[cols.index(n)] for n in rc)))
+    if conds.params:
+        terms.append(_param_term(sp.Integer(0), conds.params, params))
+    return terms
 
 
-def _curvature_functions(symbolic, params, cont):
+@dataclass(frozen=True)
+class _CurvatureFns:
+    """Compiled first and second derivatives of one symbolic term, with the columns
+    it is summed over."""
+
+    grad: tuple[Callable, ...]
+    hess: tuple[Callable, ...]   # the upper triangle, row by row
+    values: tuple[np.ndarray, ...]
+
+
+def _curvature_functions(symbolic: Sequence[SymbolicTerm], params, cont
+                         ) -> list[_CurvatureFns] | None:
     """Compiled gradient and Hessian (upper triangle) of each symbolic term, or None
     if some derivative cannot be taken symbolically."""
     psyms = [p.symbol for p in params]
@@ -1116,18 +1327,18 @@ def _curvature_functions(symbolic, params, cont):
     sub = dict(zip(psyms, tp))
     out = []
     try:
-        for expr, colnames, colvals in symbolic:
-            cp = _placeholders("c", len(colnames))
-            csub = {sp.Symbol(n, real=True): c for n, c in zip(colnames, cp)}
-            grads = [sp.diff(expr, x) for x in csyms]
+        for term in symbolic:
+            cp = _placeholders("c", len(term.columns))
+            csub = {sp.Symbol(n, real=True): c for n, c in zip(term.columns, cp)}
+            grads = [sp.diff(term.expr, x) for x in csyms]
             hess = [sp.diff(grads[i], csyms[j]) for i in range(len(csyms))
                     for j in range(i, len(csyms))]
             for e in grads + hess:
                 if e.has(sp.Derivative, sp.Subs):
                     return None
-            gf = [_lambdify(tp + cp, e.xreplace(sub).xreplace(csub)) for e in grads]
-            hf = [_lambdify(tp + cp, e.xreplace(sub).xreplace(csub)) for e in hess]
-            out.append((gf, hf, tuple(colvals)))
+            gf = tuple(_lambdify(tp + cp, e.xreplace(sub).xreplace(csub)) for e in grads)
+            hf = tuple(_lambdify(tp + cp, e.xreplace(sub).xreplace(csub)) for e in hess)
+            out.append(_CurvatureFns(gf, hf, tuple(term.values)))
     except (TypeError, ValueError, NotImplementedError, AttributeError):
         return None
     return out

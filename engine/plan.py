@@ -104,7 +104,6 @@ def memory_for(grid_points: int, axis_lengths: list[int], pairs: int = 0, *,
 def _sub_grid(grid: Grid, target: int) -> Grid:
     """A grid over the same bounds, scales and rules with about `target` points."""
     from .grid import make_axis
-    from .model import Param
     cont = [a for a in grid.axes if not a.discrete]
     fixed = math.prod(a.n for a in grid.axes if a.discrete)
     if not cont:
@@ -117,30 +116,35 @@ def _sub_grid(grid: Grid, target: int) -> Grid:
             continue
         n = max(5, min(a.n, int(round(a.n * f))))
         n = min(a.n, n + 1 - n % 2)
-        kind = "interval" if math.isfinite(a.dom_lo) and math.isfinite(a.dom_hi) else (
-            "positive" if math.isfinite(a.dom_lo) else "real")
-        p = Param(a.name, kind, a.dom_lo, a.dom_hi)
-        axes.append(make_axis(p, a.lo, a.hi, n, rule=a.rule, scale=a.scale))
+        axes.append(make_axis(a.param(), a.lo, a.hi, n, rule=a.rule, scale=a.scale))
     return Grid(tuple(axes))
 
 
+@dataclass(frozen=True)
+class Timing:
+    """How long a pass takes: `fixed` seconds plus `per_point` seconds a point."""
+
+    fixed: float
+    per_point: float
+
+
 def timing(compiled: Compiled, grid: Grid, *, small: int = 16_384, large: int = 65_536
-           ) -> tuple[float, float]:
-    """``(fixed seconds, seconds per point)`` of a compute on `grid`, from timed
-    computes of the real pass on two smaller grids of the same shape on this
-    machine (so every overhead of the pass is counted, not only the density)."""
+           ) -> Timing:
+    """The time of a compute on `grid`, from timed computes of the real pass on two
+    smaller grids of the same shape on this machine (so every overhead of the pass
+    is counted, not only the density)."""
     from .posterior import compute
     smallest = math.prod(a.n if a.discrete else min(a.n, 5) for a in grid.axes)
     if smallest > large:
         # too many dimensions for a small grid of the same shape: time the density and
         # the reduction on sample points instead
-        return 0.0, _sampled_seconds(compiled, grid)
+        return Timing(0.0, _sampled_seconds(compiled, grid))
     if grid.size <= large:
         g = grid
         t0 = time.perf_counter()
         compute(compiled, g, pairs=[], store=False)
         t = time.perf_counter() - t0
-        return 0.0, t / max(g.size, 1)
+        return Timing(0.0, t / max(g.size, 1))
     times = []
     for target in (small, large):
         g = _sub_grid(grid, target)
@@ -153,7 +157,7 @@ def timing(compiled: Compiled, grid: Grid, *, small: int = 16_384, large: int = 
     (n1, t1), (n2, t2) = times
     slope = (t2 - t1) / (n2 - n1) if n2 > n1 else t2 / n2
     slope = max(slope, t2 / n2 * 0.5)
-    return max(t2 - slope * n2, 0.0), slope
+    return Timing(max(t2 - slope * n2, 0.0), slope)
 
 
 def _sampled_seconds(compiled: Compiled, grid: Grid, sample: int = 20_000) -> float:
@@ -180,7 +184,7 @@ def _sampled_seconds(compiled: Compiled, grid: Grid, sample: int = 20_000) -> fl
 
 def seconds_per_point(compiled: Compiled, grid: Grid) -> float:
     """Measured seconds per grid point of the whole pass (density and reduction)."""
-    return timing(compiled, grid)[1]
+    return timing(compiled, grid).per_point
 
 
 #: A quick estimate above this many seconds is replaced by the precise one.
@@ -199,7 +203,8 @@ def estimate(compiled: Compiled, grid: Grid, *, pairs: int = 0, precise: bool = 
     points = math.prod(a.n for a in grid.axes)
     fixed, spp = 0.0, _sampled_seconds(compiled, grid, 4096) * QUICK_FACTOR
     if precise or spp * points > QUICK_SECONDS:
-        fixed, spp = timing(compiled, grid)
+        t = timing(compiled, grid)
+        fixed, spp = t.fixed, t.per_point
     mem = memory_for(points, [a.n for a in grid.axes], pairs, levels=grid.levels)
     return Cost(points, mem, fixed + spp * points, spp, machine_memory())
 

@@ -113,6 +113,35 @@ class Interval:
     pieces: tuple[tuple[float, float], ...] = ()
 
 
+@dataclass(frozen=True)
+class _CdfSpline:
+    """A marginal's density on its axis's scale as a spline, integrated exactly.
+
+    Attributes
+    ----------
+    density : BSpline
+        ``g(u)``, the node masses over the rule's weights, interpolated (quintic
+        where there are nodes enough).
+    anti : BSpline
+        Its antiderivative.
+    ua, ub : float
+        The ends of the axis on its scale (the cdf is 0 and 1 there).
+    f0, total : float
+        ``anti(ua)`` and ``anti(ub) - anti(ua)``.
+    """
+
+    density: interpolate.BSpline
+    anti: interpolate.BSpline
+    ua: float
+    ub: float
+    f0: float
+    total: float
+
+    def cdf_u(self, u: np.ndarray | float) -> np.ndarray:
+        uu = np.clip(u, self.ua, self.ub)
+        return np.clip((self.anti(uu) - self.f0) / self.total, 0.0, 1.0)
+
+
 class Marginal:
     """The posterior marginal of one parameter on its axis.
 
@@ -156,7 +185,7 @@ class Marginal:
         return self.mass / (self.weights * np.exp(self.logjac))
 
     # -- the cdf ---------------------------------------------------------
-    def _cdf_spline(self):
+    def _cdf_spline(self) -> "_CdfSpline":
         if self._spline is None:
             g = self.mass / self.weights
             k = min(5, len(self.u) - 1)
@@ -170,14 +199,11 @@ class Marginal:
             ua = min(float(ua), self.u[0])
             ub = max(float(ub), self.u[-1])
             f0 = float(anti(ua))
-            total = float(anti(ub)) - f0
-            self._spline = (spl, anti, ua, ub, f0, total)
+            self._spline = _CdfSpline(spl, anti, ua, ub, f0, float(anti(ub)) - f0)
         return self._spline
 
     def cdf_u(self, u: np.ndarray | float) -> np.ndarray:
-        spl, anti, ua, ub, f0, total = self._cdf_spline()
-        uu = np.clip(u, ua, ub)
-        return np.clip((anti(uu) - f0) / total, 0.0, 1.0)
+        return self._cdf_spline().cdf_u(u)
 
     def cdf(self, x: float) -> float:
         """P(parameter <= x)."""
@@ -202,12 +228,12 @@ class Marginal:
             c = np.cumsum(self.mass)
             i = int(np.searchsorted(c, q - 1e-12))
             return float(self.values[min(i, len(self.values) - 1)])
-        spl, anti, ua, ub, f0, total = self._cdf_spline()
+        cs = self._cdf_spline()
         if q <= 0:
-            return float(self.axis.to_value(np.array([ua]))[0])
+            return float(self.axis.to_value(np.array([cs.ua]))[0])
         if q >= 1:
-            return float(self.axis.to_value(np.array([ub]))[0])
-        knots = np.concatenate([[ua], self.u, [ub]])
+            return float(self.axis.to_value(np.array([cs.ub]))[0])
+        knots = np.concatenate([[cs.ua], self.u, [cs.ub]])
         c = self.cdf_u(knots)
         i = int(np.searchsorted(c, q))
         i = min(max(i, 1), len(knots) - 1)
@@ -235,14 +261,14 @@ class Marginal:
             k = int(np.searchsorted(c, level - 1e-12)) + 1
             chosen = np.sort(self.values[order[:k]])
             return _runs(chosen, self.values)
-        spl, anti, ua, ub, f0, total = self._cdf_spline()
-        mesh = np.linspace(ua, ub, max(4000, 20 * len(self.u)))
+        cs = self._cdf_spline()
+        mesh = np.linspace(cs.ua, cs.ub, max(4000, 20 * len(self.u)))
         ax = self.axis
 
         def fnat(u):
             # density in the parameter's units: g(u) / |dv/du|
-            v = np.maximum(spl(u), 0.0) / total
-            lj = _logjac_of(ax, u)
+            v = np.maximum(cs.density(u), 0.0) / cs.total
+            lj = ax.log_jacobian(u)
             return v / np.exp(lj)
 
         fm = fnat(mesh)
@@ -273,11 +299,6 @@ class Marginal:
         pieces = region(t)
         return tuple((float(ax.to_value(np.array([a]))[0]), float(ax.to_value(np.array([b]))[0]))
                      for a, b in pieces)
-
-
-def _logjac_of(ax: Axis, u):
-    from .grid import _logjac
-    return _logjac(u, ax.scale, ax.dom_lo, ax.dom_hi)
 
 
 def _cross(f, t, a, b):
@@ -322,6 +343,20 @@ class Diagnostics:
 
 
 @dataclass(frozen=True)
+class LevelMoments:
+    """Mean and covariance of the parameters on one level of the grid.
+
+    Attributes
+    ----------
+    mean : ndarray, shape (d,)
+    cov : ndarray, shape (d, d)
+    """
+
+    mean: np.ndarray
+    cov: np.ndarray
+
+
+@dataclass(frozen=True)
 class Posterior:
     """The posterior on a grid, as reduced in one pass.
 
@@ -338,7 +373,8 @@ class Posterior:
     coarse_marginals : tuple of dict
         The same marginals on the nested coarse grids.
     mean, cov : ndarray, shapes (d,) and (d, d)
-    coarse_moments : tuple of (ndarray, ndarray)
+    coarse_moments : tuple of LevelMoments
+        The same moments on the nested coarse grids.
     pairs : dict of (int, int) to ndarray
         2-D marginal node masses, shape (n_i, n_j).
     best : dict of str to float
@@ -359,7 +395,7 @@ class Posterior:
     coarse_marginals: tuple[dict[str, Marginal], ...]
     mean: np.ndarray
     cov: np.ndarray
-    coarse_moments: tuple[tuple[np.ndarray, np.ndarray], ...]
+    coarse_moments: tuple[LevelMoments, ...]
     pairs: dict[tuple[int, int], np.ndarray]
     best: dict[str, float]
     best_logp: float
@@ -476,12 +512,30 @@ class Posterior:
 # ---------------------------------------------------------------------------
 # the pass
 
-class _Acc:
-    """Running sums in log space against a common reference `M`."""
+class _Sums:
+    """Running sums of the pass in log space against a common reference `M`.
 
-    def __init__(self, grid: Grid, levels: int, pairs: Sequence[tuple[int, int]],
-                 centre: np.ndarray):
+    Attributes
+    ----------
+    M : float
+        The reference: every sum is ``sum exp(log term - M)``.
+    L : int
+        The nested coarse levels summed besides the fine grid.
+    Z : ndarray, shape (levels + 1,)
+        The mass on the fine grid and on each nested coarse grid.
+    marg : list of ndarray, each (levels + 1, n_axis)
+        Node masses of every 1-D marginal, per level.
+    S1, S2 : ndarray, shapes (levels + 1, d) and (levels + 1, d, d)
+        First and second moments about `centre`, per level.
+    pairs : dict of (int, int) to ndarray
+        Node masses of the 2-D marginals kept (fine grid only).
+    centre : ndarray, shape (d,)
+        The grid's middle point (moments about it keep their digits).
+    """
+
+    def __init__(self, grid: Grid, pairs: Sequence[tuple[int, int]]):
         d = len(grid.axes)
+        levels = grid.levels
         self.M = -np.inf
         self.L = levels
         self.Z = np.zeros(levels + 1)
@@ -489,7 +543,7 @@ class _Acc:
         self.S1 = np.zeros((levels + 1, d))
         self.S2 = np.zeros((levels + 1, d, d))
         self.pairs = {p: np.zeros((grid.axes[p[0]].n, grid.axes[p[1]].n)) for p in pairs}
-        self.centre = centre
+        self.centre = np.array([a.values[a.n // 2] for a in grid.axes])
 
     def rescale(self, new_m: float):
         if self.M == -np.inf:
@@ -505,6 +559,34 @@ class _Acc:
             p *= f
         self.M = new_m
 
+    def add_block(self, grid: Grid, idx, theta: Sequence[np.ndarray], lp: np.ndarray) -> None:
+        """Add one block's log-density `lp` at nodes `idx` to the sums of every level."""
+        n = len(lp)
+        lw = np.zeros(n)
+        for a, i in zip(grid.axes, idx):
+            lw += a.logw[i]
+        t = lp + lw
+        bm = float(np.max(t))
+        if bm > self.M and np.isfinite(bm):
+            self.rescale(bm)
+        if not np.isfinite(self.M):
+            return
+        theta_c = np.column_stack(theta) - self.centre
+        w = np.exp(t - self.M)
+        self.add(0, w, idx, theta_c)
+        for lev in range(self.L):
+            lwc = np.zeros(n)
+            for a, i in zip(grid.axes, idx):
+                lwc += a.coarse[lev][i]
+            m = np.isfinite(lwc)
+            if m.any():
+                wc = np.exp(lp[m] + lwc[m] - self.M)
+                self.add(lev + 1, wc, tuple(i[m] for i in idx), theta_c[m])
+        for (a_, b_), arr in self.pairs.items():
+            nb = grid.axes[b_].n
+            flat = idx[a_] * nb + idx[b_]
+            arr += np.bincount(flat, weights=w, minlength=arr.size).reshape(arr.shape)
+
     def add(self, level: int, w: np.ndarray, idx, theta_c: np.ndarray):
         with np.errstate(over="ignore", invalid="ignore"):
             self._add(level, w, idx, theta_c)
@@ -518,6 +600,63 @@ class _Acc:
         self.S2[level] += tw.T @ theta_c
 
 
+class _Watch:
+    """What the pass notes besides the sums.
+
+    Attributes
+    ----------
+    logp : ndarray or None
+        The log-density of every point, when it is kept.
+    nan_count, nan_first : int, int or None
+        Points where the log-density is NaN, and the first of them (flat index).
+    zero : int
+        Points of zero density.
+    best_lp, best_flat : float, int
+        The highest log-density and where it is.
+    """
+
+    def __init__(self, grid: Grid, store: bool):
+        self.logp = np.empty(grid.size) if store else None
+        self.nan_count = 0
+        self.nan_first: int | None = None
+        self.zero = 0
+        self.best_lp, self.best_flat = -np.inf, 0
+
+    def see(self, grid: Grid, start: int, stop: int, lp: np.ndarray) -> None:
+        """Note block ``start .. stop-1`` (NaN turned to -inf in place); refuse +inf."""
+        bad = np.isnan(lp)
+        if bad.any():
+            self.nan_count += int(bad.sum())
+            if self.nan_first is None:
+                self.nan_first = start + int(np.argmax(bad))
+            lp[bad] = -np.inf
+        pos = np.isposinf(lp)
+        if pos.any():
+            where = grid.point(start + int(np.argmax(pos)))
+            raise ComputeError("the log-density is +inf at " + _point_text(where) +
+                               " (the density is unbounded there); keep the grid away from that "
+                               "point or grid it on its log / logit scale")
+        if self.logp is not None:
+            self.logp[start:stop] = lp
+        self.zero += int(np.isneginf(lp).sum())
+        k = int(np.argmax(lp))
+        if lp[k] > self.best_lp:
+            self.best_lp, self.best_flat = float(lp[k]), start + k
+
+    def check(self, grid: Grid, sums: _Sums) -> None:
+        """Refuse a pass that met NaN, or found no mass."""
+        if self.nan_count:
+            where = grid.point(self.nan_first)
+            raise ComputeError(
+                f"the log-density is NaN at {self.nan_count:,} of {grid.size:,} grid points "
+                f"({100 * self.nan_count / grid.size:.3g}%), first at {_point_text(where)}; a "
+                "formula is outside its domain there (log or sqrt of a negative number, 0/0, ...)")
+        if not np.isfinite(sums.M) or sums.Z[0] <= 0:
+            raise ComputeError("the posterior is zero at every grid point: the data are impossible "
+                               "under the model on this grid (check the data, the supports and the "
+                               "grid bounds)")
+
+
 def _block_theta(grid: Grid, idx) -> list[np.ndarray]:
     return [a.values[i] for a, i in zip(grid.axes, idx)]
 
@@ -529,6 +668,85 @@ def evaluate_block(compiled: Compiled, theta: Sequence[np.ndarray]) -> np.ndarra
         lp = lpr + compiled.log_likelihood(theta)
     lp[np.isneginf(lpr)] = -np.inf
     return lp
+
+
+# -- where each block's log-density comes from -------------------------------------
+
+class _Stored:
+    """Block source: the log-density of every point is given."""
+
+    def __init__(self, compiled: Compiled, logp: np.ndarray):
+        self.compiled = compiled
+        self.logp = logp
+        self.evaluated = 0
+
+    def __call__(self, start: int, stop: int, idx, theta) -> np.ndarray:
+        return np.array(self.logp[start:stop], dtype=float)
+
+
+class _Fresh:
+    """Block source: the model evaluated at every point."""
+
+    def __init__(self, compiled: Compiled):
+        self.compiled = compiled
+        self.evaluated = 0
+
+    def __call__(self, start: int, stop: int, idx, theta) -> np.ndarray:
+        self.evaluated += stop - start
+        return evaluate_block(self.compiled, theta)
+
+
+class _Nested:
+    """Block source: an earlier posterior on a grid this one refines gives the nodes
+    the two share; the model is evaluated at the new ones only."""
+
+    def __init__(self, compiled: Compiled, nest: list[np.ndarray], old: "Posterior"):
+        self.compiled = compiled
+        self.nest = nest
+        self.old = old
+        self.evaluated = 0
+
+    def __call__(self, start: int, stop: int, idx, theta) -> np.ndarray:
+        lp = np.empty(stop - start)
+        old = [m[i] for m, i in zip(self.nest, idx)]
+        shared = np.ones(stop - start, bool)
+        for o in old:
+            shared &= o >= 0
+        if shared.any():
+            flat_old = np.ravel_multi_index(tuple(o[shared] for o in old), self.old.grid.shape)
+            lp[shared] = self.old.logp[flat_old]
+        fresh = ~shared
+        if fresh.any():
+            lp[fresh] = evaluate_block(self.compiled, [t[fresh] for t in theta])
+        self.evaluated += int(fresh.sum())
+        return lp
+
+
+def _block_source(compiled: Compiled, grid: Grid, reuse: "Posterior | None",
+                  logp: np.ndarray | None):
+    """The one source of block log-densities for a pass: the given `logp`, else the
+    nested earlier posterior `reuse`, else fresh evaluation (of the model with its
+    reduced sums verified against row-wise sums on a sample of points)."""
+    if logp is not None:
+        if logp.shape != (grid.size,):
+            raise ComputeError("the log-density given does not match the grid")
+        return _Stored(compiled, logp)
+    rng = np.random.default_rng(0)
+    sample = tuple(np.concatenate([[a.n // 2], rng.integers(0, a.n, size=256)])
+                   for a in grid.axes)
+    compiled = compiled.verified(_block_theta(grid, sample))
+    nest = _nesting(grid, reuse) if reuse is not None else None
+    if nest is not None:
+        return _Nested(compiled, nest, reuse)
+    return _Fresh(compiled)
+
+
+def _default_pairs(grid: Grid) -> list[tuple[int, int]]:
+    """Every pair while the model has at most 4 parameters, each of at most 4
+    million cells."""
+    d = len(grid.axes)
+    return [(i, j) for i in range(d) for j in range(i + 1, d)
+            if d <= 4 and grid.axes[i].n * grid.axes[j].n <= 4_000_000]
 
 
 def compute(compiled: Compiled, grid: Grid, *, block: int = BLOCK,
@@ -573,112 +791,22 @@ def compute(compiled: Compiled, grid: Grid, *, block: int = BLOCK,
     """
     t0 = time.perf_counter()
     check_grid(grid, compiled.params)
-    d = len(grid.axes)
-    if pairs is None:
-        pairs = [(i, j) for i in range(d) for j in range(i + 1, d)
-                 if d <= 4 and grid.axes[i].n * grid.axes[j].n <= 4_000_000]
-    levels = grid.levels
-    if store is None:
-        store = grid.size <= STORE_LIMIT
-    # verify reduced sums against row-wise sums on a sample of points
-    rng = np.random.default_rng(0)
-    k = 256
-    sidx = tuple(np.concatenate([[a.n // 2], rng.integers(0, a.n, size=k)]) for a in grid.axes)
-    if logp is None:
-        compiled = compiled.verified(_block_theta(grid, sidx))
-    elif logp.shape != (grid.size,):
-        raise ComputeError("the log-density given does not match the grid")
-    nest = _nesting(grid, reuse) if reuse is not None else None
-
-    centre = np.array([a.values[a.n // 2] for a in grid.axes])
-    acc = _Acc(grid, levels, pairs, centre)
-    logp_all = np.empty(grid.size) if store else None
-    nan_count = 0
-    nan_first = None
-    zero = 0
-    best_lp, best_flat = -np.inf, 0
-    done = 0
-    evaluated = 0
+    pairs = _default_pairs(grid) if pairs is None else pairs
+    source = _block_source(compiled, grid, reuse, logp)
+    sums = _Sums(grid, pairs)
+    watch = _Watch(grid, grid.size <= STORE_LIMIT if store is None else store)
     for start, stop in grid.blocks(block):
         idx = grid.indices(start, stop)
         theta = _block_theta(grid, idx)
-        if logp is not None:
-            lp = np.array(logp[start:stop], dtype=float)
-        elif nest is not None:
-            lp = np.empty(stop - start)
-            old = [m[i] for m, i in zip(nest, idx)]
-            shared = np.ones(stop - start, bool)
-            for o in old:
-                shared &= o >= 0
-            if shared.any():
-                flat_old = np.ravel_multi_index(tuple(o[shared] for o in old), reuse.grid.shape)
-                lp[shared] = reuse.logp[flat_old]
-            fresh = ~shared
-            if fresh.any():
-                lp[fresh] = evaluate_block(compiled, [t[fresh] for t in theta])
-            evaluated += int(fresh.sum())
-        else:
-            lp = evaluate_block(compiled, theta)
-            evaluated += stop - start
-        bad = np.isnan(lp)
-        if bad.any():
-            nan_count += int(bad.sum())
-            if nan_first is None:
-                nan_first = start + int(np.argmax(bad))
-            lp[bad] = -np.inf
-        pos = np.isposinf(lp)
-        if pos.any():
-            where = grid.point(start + int(np.argmax(pos)))
-            raise ComputeError("the log-density is +inf at " + _point_text(where) +
-                               " (the density is unbounded there); keep the grid away from that "
-                               "point or grid it on its log / logit scale")
-        if store:
-            logp_all[start:stop] = lp
-        zero += int(np.isneginf(lp).sum())
-        k = int(np.argmax(lp))
-        if lp[k] > best_lp:
-            best_lp, best_flat = float(lp[k]), start + k
-        lw = np.zeros(stop - start)
-        for a, i in zip(grid.axes, idx):
-            lw += a.logw[i]
-        t = lp + lw
-        bm = float(np.max(t))
-        if bm > acc.M and np.isfinite(bm):
-            acc.rescale(bm)
-        if np.isfinite(acc.M):
-            theta_c = np.column_stack(theta) - centre
-            w = np.exp(t - acc.M)
-            acc.add(0, w, idx, theta_c)
-            for lev in range(levels):
-                lwc = np.zeros(stop - start)
-                for a, i in zip(grid.axes, idx):
-                    lwc += a.coarse[lev][i]
-                m = np.isfinite(lwc)
-                if m.any():
-                    wc = np.exp(lp[m] + lwc[m] - acc.M)
-                    acc.add(lev + 1, wc, tuple(i[m] for i in idx), theta_c[m])
-            for (a_, b_), arr in acc.pairs.items():
-                nb = grid.axes[b_].n
-                flat = idx[a_] * nb + idx[b_]
-                arr += np.bincount(flat, weights=w, minlength=arr.size).reshape(arr.shape)
-        done = stop
+        lp = source(start, stop, idx, theta)
+        watch.see(grid, start, stop, lp)
+        sums.add_block(grid, idx, theta, lp)
         if progress is not None:
-            progress(done, grid.size)
-
-    if nan_count:
-        where = grid.point(nan_first)
-        raise ComputeError(
-            f"the log-density is NaN at {nan_count:,} of {grid.size:,} grid points "
-            f"({100 * nan_count / grid.size:.3g}%), first at {_point_text(where)}; a formula is "
-            "outside its domain there (log or sqrt of a negative number, 0/0, ...)")
-    if not np.isfinite(acc.M) or acc.Z[0] <= 0:
-        raise ComputeError("the posterior is zero at every grid point: the data are impossible "
-                           "under the model on this grid (check the data, the supports and the "
-                           "grid bounds)")
+            progress(stop, grid.size)
+    watch.check(grid, sums)
     with np.errstate(all="ignore"):
-        post = _finish(compiled, grid, acc, levels, pairs, best_flat, best_lp, zero, logp_all,
-                       time.perf_counter() - t0)
-    return replace(post, evaluated=evaluated)
+        post = _finish(source.compiled, grid, sums, watch, time.perf_counter() - t0)
+    return replace(post, evaluated=source.evaluated)
 
 
 def _nesting(grid: Grid, old: "Posterior") -> list[np.ndarray] | None:
@@ -713,48 +841,77 @@ def _point_text(where: dict[str, float]) -> str:
     return ", ".join(f"{k} = {v:.6g}" for k, v in where.items())
 
 
-def _finish(compiled, grid, acc, levels, pairs, best_flat, best_lp, zero, logp_all, seconds):
-    d = len(grid.axes)
-    log_mass = tuple(float(math.log(z) + acc.M) if z > 0 else -math.inf for z in acc.Z)
-    marg = {a.name: Marginal(a, acc.marg[k][0]) for k, a in enumerate(grid.axes)}
+def _finish(compiled: Compiled, grid: Grid, sums: _Sums, watch: _Watch, seconds: float
+            ) -> Posterior:
+    """The `Posterior` from the sums of a pass."""
+    log_mass = tuple(float(math.log(z) + sums.M) if z > 0 else -math.inf for z in sums.Z)
+    marg = {a.name: Marginal(a, sums.marg[k][0]) for k, a in enumerate(grid.axes)}
+    coarse = _coarse_marginals(grid, sums)
+    moments = _moments(sums)
+    # free `prior log` terms: the prior's normaliser is found numerically
+    prior_norm = prior_normaliser(compiled) if compiled.proper and compiled.free_prior else 0.0
+    log_ev = _evidence(compiled, grid, log_mass, prior_norm)
+    diag = _diagnostics(grid, marg, watch.zero)
+    if log_ev is not None and log_ev.error is not None:
+        # the mass beyond the grid is missing from the evidence too
+        log_ev = replace(log_ev, error=log_ev.error + diag.missing)
+    return Posterior(grid, compiled, log_mass, log_ev, marg, coarse, moments[0].mean,
+                     moments[0].cov, tuple(moments[1:len(coarse) + 1]), dict(sums.pairs),
+                     grid.point(watch.best_flat), watch.best_lp, diag, seconds, watch.logp,
+                     prior_norm)
+
+
+def _coarse_marginals(grid: Grid, sums: _Sums) -> tuple[dict[str, Marginal], ...]:
+    """The marginals of every nested coarse level, as far as each level has mass on
+    every axis."""
     coarse = []
-    for lev in range(levels):
+    for lev in range(grid.levels):
         cm = {}
         for k, a in enumerate(grid.axes):
             keep = np.isfinite(a.coarse[lev]) if not a.discrete else np.ones(a.n, bool)
             w = np.exp(a.coarse[lev] - a.logjac)
             try:
-                cm[a.name] = Marginal(a, acc.marg[k][lev + 1], keep, weights=w)
+                cm[a.name] = Marginal(a, sums.marg[k][lev + 1], keep, weights=w)
             except ComputeError:
-                cm = None
-                break
-        if cm is None:
-            break
+                return tuple(coarse)
         coarse.append(cm)
-    moments = []
-    for lev in range(levels + 1):
-        z = acc.Z[lev]
+    return tuple(coarse)
+
+
+def _moments(sums: _Sums) -> list[LevelMoments]:
+    """Mean and covariance on every level (NaN where a level has no mass)."""
+    d = len(sums.centre)
+    out = []
+    for lev in range(sums.L + 1):
+        z = sums.Z[lev]
         if z <= 0:
-            moments.append((np.full(d, np.nan), np.full((d, d), np.nan)))
+            out.append(LevelMoments(np.full(d, np.nan), np.full((d, d), np.nan)))
             continue
-        m1 = acc.S1[lev] / z
-        cov = acc.S2[lev] / z - np.outer(m1, m1)
-        moments.append((m1 + acc.centre, cov))
-    # the evidence: only for a proper prior
-    log_ev = None
-    prior_norm = 0.0
-    if compiled.proper:
-        if compiled.free_prior:
-            prior_norm = prior_normaliser(compiled)
-        order = min((a.order for a in grid.axes if not a.discrete), default=2)
-        exact = all(a.discrete for a in grid.axes)
-        lm = [v - prior_norm for v in log_mass]
-        log_ev = combine(lm[0], lm[1] if len(lm) > 1 else None,
-                         lm[2] if len(lm) > 2 else None, order=order, exact=exact)
+        m1 = sums.S1[lev] / z
+        cov = sums.S2[lev] / z - np.outer(m1, m1)
+        out.append(LevelMoments(m1 + sums.centre, cov))
+    return out
+
+
+def _evidence(compiled: Compiled, grid: Grid, log_mass: tuple[float, ...], prior_norm: float
+              ) -> Estimate | None:
+    """The log evidence with its error; None for an improper prior."""
+    if not compiled.proper:
+        return None
+    order = min((a.order for a in grid.axes if not a.discrete), default=2)
+    exact = all(a.discrete for a in grid.axes)
+    lm = [v - prior_norm for v in log_mass]
+    return combine(lm[0], lm[1] if len(lm) > 1 else None,
+                   lm[2] if len(lm) > 2 else None, order=order, exact=exact)
+
+
+def _diagnostics(grid: Grid, marg: dict[str, Marginal], zero: int) -> Diagnostics:
+    """Edge masses, the resolution of the narrowest marginal, and the mass beyond
+    the grid."""
     edge = {}
     per_sd = math.inf
     missing = 0.0
-    for k, a in enumerate(grid.axes):
+    for a in grid.axes:
         if a.discrete:
             continue
         m = marg[a.name]
@@ -769,13 +926,7 @@ def _finish(compiled, grid, acc, levels, pairs, best_flat, best_lp, zero, logp_a
         if sd > 0 and a.n > 1:
             h = np.median(a.spacing())
             per_sd = min(per_sd, sd / h if h > 0 else math.inf)
-    diag = Diagnostics(zero, edge, per_sd, min(missing, 1.0))
-    if log_ev is not None and log_ev.error is not None:
-        # the mass beyond the grid is missing from the evidence too
-        log_ev = replace(log_ev, error=log_ev.error + missing)
-    return Posterior(grid, compiled, log_mass, log_ev, marg, tuple(coarse), moments[0][0],
-                     moments[0][1], tuple(moments[1:len(coarse) + 1]), dict(acc.pairs),
-                     grid.point(best_flat), best_lp, diag, seconds, logp_all, prior_norm)
+    return Diagnostics(zero, edge, per_sd, min(missing, 1.0))
 
 
 def prior_normaliser(compiled: Compiled, points: int = 201) -> float:

@@ -22,7 +22,8 @@ from scipy import optimize
 from . import families as fam
 from .data import Column, DataSet
 from .errors import ComputeError, ModelError
-from .model import (Likelihood, Model, ReducedTerm, RowTerm, compile_model,
+from .grid import Grid
+from .model import (Likelihood, Model, ParamFunction, ReducedTerm, RowTerm, compile_model,
                     expand_lets, param_function)
 from .posterior import Marginal, Posterior
 from .questions import walk
@@ -132,15 +133,24 @@ def _chunks(n: int, size: int = 200_000):
         yield slice(a, min(n, a + size))
 
 
-def _mixture_points(post: Posterior) -> tuple[list[np.ndarray], np.ndarray]:
-    """Grid points and normalised weights holding all but `MIX_TAIL` of the mass."""
+@dataclass(frozen=True)
+class _MassPoints:
+    """Grid points and their normalised posterior weights, each shape (k,)."""
+
+    theta: list[np.ndarray]
+    weights: np.ndarray
+
+
+def _mixture_points(post: Posterior) -> _MassPoints:
+    """The grid points holding all but `MIX_TAIL` of the mass (at most `MIX_MAX`)."""
     thetas: list[list[np.ndarray]] = [[] for _ in post.grid.axes]
     ws = []
-    for idx, theta, w in walk(post):
-        keep = w[0] > 0
-        for k, t in enumerate(theta):
+    for b in walk(post):
+        w0 = b.weights[0]
+        keep = w0 > 0
+        for k, t in enumerate(b.theta):
             thetas[k].append(t[keep])
-        ws.append(w[0][keep])
+        ws.append(w0[keep])
     w = np.concatenate(ws)
     th = [np.concatenate(t) for t in thetas]
     order = np.argsort(w)
@@ -150,7 +160,7 @@ def _mixture_points(post: Posterior) -> tuple[list[np.ndarray], np.ndarray]:
     if len(keep) > MIX_MAX:
         keep = order[-MIX_MAX:]
     w = w[keep]
-    return [t[keep] for t in th], w / w.sum()
+    return _MassPoints([t[keep] for t in th], w / w.sum())
 
 
 def _mixture_sd(w: np.ndarray, means: np.ndarray, sds: np.ndarray, mean: float) -> float:
@@ -174,8 +184,17 @@ def predictive(post: Posterior, name: str, family: str, args: Sequence[sp.Expr],
     `args` are expressions of the parameters and lets (numbers for covariates).
     """
     f = fam.get(family)
+    fns = _argument_functions(post, f, args, model)
+    mix = _mixture(post, fns, family)
+    pred = _untabled(name, f, mix)
+    return _with_pmf_table(pred) if f.discrete else _with_density_mesh(pred)
+
+
+def _argument_functions(post: Posterior, f: fam.Family, args: Sequence[sp.Expr],
+                        model: Model) -> list[ParamFunction]:
+    """The family's arguments compiled over the grid points (parameters and lets only)."""
     if len(args) != len(f.params):
-        raise ModelError(f"`{family}` takes {len(f.params)} argument"
+        raise ModelError(f"`{f.name}` takes {len(f.params)} argument"
                          f"{'s' if len(f.params) != 1 else ''} ({', '.join(f.params)}), "
                          f"got {len(args)}")
     params = post.compiled.params
@@ -188,17 +207,37 @@ def predictive(post: Posterior, name: str, family: str, args: Sequence[sp.Expr],
             raise ModelError(f"predict: `{sorted(bad)[0]}` is a data column; give the new "
                              "row's values as numbers")
         fns.append(param_function(e, params))
-    theta, w = _mixture_points(post)
-    argv = tuple(np.asarray(fn(theta), float) for fn in fns)
-    # keep only points where the arguments are finite
+    return fns
+
+
+@dataclass(frozen=True)
+class _Mixture:
+    """The components of a predictive: normalised weights and the family's arguments
+    at the grid points that carry them, each shape (k,)."""
+
+    weights: np.ndarray
+    args: tuple[np.ndarray, ...]
+
+
+def _mixture(post: Posterior, fns: Sequence[ParamFunction], family: str) -> _Mixture:
+    """The grid points holding all but `MIX_TAIL` of the mass where the arguments are
+    finite."""
+    pts = _mixture_points(post)
+    w = pts.weights
+    argv = tuple(np.asarray(fn(pts.theta), float) for fn in fns)
     ok = np.ones(len(w), bool)
     for a in argv:
         ok &= np.isfinite(a)
     if not ok.any():
         raise ComputeError(f"predict: the arguments of `{family}` are not finite anywhere")
-    dist = f.scipy(*[a[ok] for a in argv])
-    w = w[ok] / w[ok].sum()
-    argv = tuple(a[ok] for a in argv)
+    return _Mixture(w[ok] / w[ok].sum(), tuple(a[ok] for a in argv))
+
+
+def _untabled(name: str, f: fam.Family, mix: _Mixture) -> Predictive:
+    """The predictive with its mean and sd (law of total variance), before its pmf
+    table or density mesh."""
+    w = mix.weights
+    dist = f.scipy(*mix.args)
     with np.errstate(all="ignore"):
         means = np.asarray(dist.mean(), float)
         sds = np.asarray(dist.std(), float)
@@ -213,25 +252,34 @@ def predictive(post: Posterior, name: str, family: str, args: Sequence[sp.Expr],
     if f.discrete and math.isfinite(mean) and abs(mean) + 40 * (sd if sd == sd else 0) > 2**53:
         raise ComputeError(f"predict: `{name}` would be a count of about {mean:.3g}, beyond "
                            "the whole numbers double precision holds exactly (2^53)")
-    pred = Predictive(name, family, f.discrete, np.zeros(0), np.zeros(0), mean, sd, w, argv)
-    if f.discrete:
-        lo = _int_quantile(pred, 1e-12, low=True)
-        hi = _int_quantile(pred, 1 - 1e-12, low=False)
-        if hi - lo > MAX_PMF_VALUES:
-            # a cut table would give wrong quantiles without a word
-            raise ComputeError(f"predict: `{name}` spreads over {hi - lo + 1:,} whole numbers "
-                               f"({lo:,} .. {hi:,}); its pmf table holds at most "
-                               f"{MAX_PMF_VALUES:,}")
-        vals = np.arange(lo, hi + 1, dtype=float)
-        pm = np.zeros(len(vals))
-        for sl in _chunks(len(w), max(1, 2_000_000 // max(len(vals), 1))):
-            d = pred.dist(sl)
-            with np.errstate(all="ignore"):
-                pm += np.nan_to_num(np.einsum("k,vk->v", w[sl], d.pmf(vals[:, None])))
-        return replace(pred, values=vals, density=pm)
-    a = pred.quantile(1e-4)
-    b = pred.quantile(1 - 1e-4)
-    vals = np.linspace(a, b, 401)
+    return Predictive(name, f.name, f.discrete, np.zeros(0), np.zeros(0), mean, sd, w, mix.args)
+
+
+def _with_pmf_table(pred: Predictive) -> Predictive:
+    """A discrete predictive with its pmf at every whole number between its
+    1e-12 and 1 - 1e-12 quantiles."""
+    w = pred._weights
+    lo = _int_quantile(pred, 1e-12, low=True)
+    hi = _int_quantile(pred, 1 - 1e-12, low=False)
+    if hi - lo > MAX_PMF_VALUES:
+        # a cut table would give wrong quantiles without a word
+        raise ComputeError(f"predict: `{pred.name}` spreads over {hi - lo + 1:,} whole numbers "
+                           f"({lo:,} .. {hi:,}); its pmf table holds at most "
+                           f"{MAX_PMF_VALUES:,}")
+    vals = np.arange(lo, hi + 1, dtype=float)
+    pm = np.zeros(len(vals))
+    for sl in _chunks(len(w), max(1, 2_000_000 // max(len(vals), 1))):
+        d = pred.dist(sl)
+        with np.errstate(all="ignore"):
+            pm += np.nan_to_num(np.einsum("k,vk->v", w[sl], d.pmf(vals[:, None])))
+    return replace(pred, values=vals, density=pm)
+
+
+def _with_density_mesh(pred: Predictive) -> Predictive:
+    """A continuous predictive with its density on 401 points between its 1e-4 and
+    1 - 1e-4 quantiles."""
+    w = pred._weights
+    vals = np.linspace(pred.quantile(1e-4), pred.quantile(1 - 1e-4), 401)
     dens = np.zeros(len(vals))
     for sl in _chunks(len(w), max(1, 2_000_000 // len(vals))):
         d = pred.dist(sl)
@@ -241,7 +289,9 @@ def predictive(post: Posterior, name: str, family: str, args: Sequence[sp.Expr],
 
 
 def _int_quantile(pred: Predictive, q: float, *, low: bool) -> int:
-    """Integer quantile of a discrete predictive by bracketing and bisection."""
+    """A whole number at or beyond the q-quantile of a discrete predictive: the
+    smallest (`low`) or largest component quantile, between which the mixture's
+    quantile lies (0 where no component has a finite one)."""
     with np.errstate(all="ignore"):
         qs = np.asarray(pred.dist().ppf(q), float)
     qs = qs[np.isfinite(qs)]
@@ -286,10 +336,19 @@ class SampleSize:
     seed: int
 
 
-def future_likelihood(model: Model, data: DataSet, using: tuple[str, str, tuple] | None
-                      ) -> tuple[str, str, tuple[sp.Expr, ...]]:
-    """The likelihood future rows follow: `using` (column, family, args) if given,
-    else the model's only likelihood, if its arguments read no data column."""
+@dataclass(frozen=True)
+class FutureRows:
+    """The likelihood future observations follow: ``column ~ family(args)``, the
+    arguments in the parameters and lets."""
+
+    column: str
+    family: str
+    args: tuple[sp.Expr, ...]
+
+
+def future_likelihood(model: Model, data: DataSet, using: FutureRows | None) -> FutureRows:
+    """The likelihood future rows follow: `using` if given, else the model's only
+    likelihood, if its arguments read no data column."""
     if using is not None:
         return using
     lks = [lk for lk in model.likelihoods if lk.column is not None]
@@ -307,11 +366,11 @@ def future_likelihood(model: Model, data: DataSet, using: tuple[str, str, tuple]
     if lk.censor:
         raise ModelError("the likelihood has censored rows; name the future rows with "
                          "`using COL ~ FAMILY(args)`")
-    return lk.column, lk.family, lk.args
+    return FutureRows(lk.column, lk.family, tuple(lk.args))
 
 
 def sample_size(post: Posterior, model: Model, name: str, width: float, *, level: float = 0.95,
-                max_n: int = 10_000, using: tuple[str, str, tuple] | None = None,
+                max_n: int = 10_000, using: FutureRows | None = None,
                 data: DataSet | None = None, sims: int = 200, seed: int = 1,
                 kind: str = "central", progress: Callable[[int, int], None] | None = None
                 ) -> SampleSize:
@@ -322,7 +381,40 @@ def sample_size(post: Posterior, model: Model, name: str, width: float, *, level
     that value; the posterior updated by the first ``n`` of them gives an interval
     of `name`; the widths are averaged over simulations. The same draws serve every
     ``n`` (common random numbers), so the expected width falls smoothly with ``n``.
+
+    The phases: checks (`_samplesize_iv`), the simulation set up once
+    (`_Simulation`), today's width, then doubling and bisection on ``n``
+    (`_search`), each ``n`` simulated once (`_Expected`).
     """
+    max_n = _samplesize_iv(post, width, level, max_n)
+    future = future_likelihood(model, data if data is not None else DataSet(), using)
+    fam.get(future.family)   # an unknown family is refused before any work
+    if name not in post.grid.names:
+        raise ModelError(f"no parameter `{name}`")
+    # the posteriors simulated are narrower than today's: refine the grid until the
+    # axis of `name` has about 25 nodes across the target width (nested doubling, so
+    # today's evaluations are reused), within a budget of points
+    post = _fine_enough(post, name, width)
+    sim = _Simulation(post, model, future, name, sims=sims, seed=seed, max_n=max_n)
+    w0 = _width(post.marginals[name], level, kind)
+    if w0 <= width:
+        return SampleSize(0, w0, 0.0, (), f"the {level:g} interval of `{name}` is already "
+                          f"{w0:.4g} wide: no further observations are needed", sims, seed)
+    expected = _Expected(sim, level, kind, progress)
+    found = _search(expected, width, max_n)
+    if found is None:
+        at = expected(max_n)
+        return SampleSize(None, at.width, at.mc_error, expected.steps(),
+                          f"not reached by {max_n:,} further observations (expected "
+                          f"width there {at.width:.4g}); raise `max`", sims, seed)
+    msg = ""
+    if abs(found.width - width) < 2 * found.mc_error:
+        msg = "the expected width is within two Monte Carlo errors of the target; more " \
+              "simulations would firm up n"
+    return SampleSize(found.n, found.width, found.mc_error, expected.steps(), msg, sims, seed)
+
+
+def _samplesize_iv(post: Posterior, width: float, level: float, max_n) -> int:
     if post.logp is None:
         raise ComputeError("samplesize needs a grid small enough to keep its density "
                            "(at most 16 million points)")
@@ -332,119 +424,132 @@ def sample_size(post: Posterior, model: Model, name: str, width: float, *, level
         raise ComputeError(f"level must be between 0 and 1; got {level:g}")
     if int(max_n) != max_n or max_n < 1:
         raise ComputeError(f"`max` must be a whole number >= 1; got {max_n}")
-    max_n = int(max_n)
-    data = data if data is not None else DataSet()
-    col, family, args = future_likelihood(model, data, using)
-    f = fam.get(family)
-    params = post.compiled.params
-    grid = post.grid
-    if name not in grid.names:
-        raise ModelError(f"no parameter `{name}`")
-    if grid.axis(name).discrete and kind == "central":
-        pass
-    # the posteriors simulated are narrower than today's: refine the grid until the
-    # axis of `name` has about 25 nodes across the target width (nested doubling, so
-    # today's evaluations are reused), within a budget of points
-    post = _fine_enough(post, name, width)
-    grid = post.grid
-    rng = np.random.default_rng(seed)
-    # parameter draws: grid points by posterior mass
-    theta, w = _mixture_points(post)
-    pick = rng.choice(len(w), size=sims, p=w)
-    arg_fns = [param_function(expand_lets(a, model), params) for a in args]
-    draw_args = [np.asarray(fn([t[pick] for t in theta]), float) for fn in arg_fns]
-    # future rows as uniforms mapped through each draw's quantile function
-    U = rng.random((sims, max_n))
-    # the future likelihood, compiled once over a placeholder column
-    fut_model = Model(model.params, (), (Likelihood(col, family, tuple(args), None, None, ""),),
-                      model.lets)
-    placeholder_vals = np.asarray(f.scipy(*[a[0] for a in draw_args]).ppf(U[0, :1]), float)
-    ds = DataSet()
-    ds, _ = ds.with_column(Column(col, placeholder_vals))
-    try:
-        fut = compile_model(fut_model, ds)
-    except Exception as exc:  # the placeholder row may be off-support for other draws
-        raise ComputeError(f"cannot set up future rows of `{col}`: {exc}") from None
-    terms = [t for part in fut.likelihood for t in part.terms]
-    # grid points, their log weights and the axis index of `name`, once
-    flat_theta, lw, idx_name = [], [], []
-    k = grid.index(name)
-    for start, stop in grid.blocks(1 << 22):
-        idx = grid.indices(start, stop)
-        flat_theta.append([a.values[i] for a, i in zip(grid.axes, idx)])
-        l_ = np.zeros(stop - start)
-        for a, i in zip(grid.axes, idx):
-            l_ += a.logw[i]
-        lw.append(l_)
-        idx_name.append(idx[k])
-    TH = [np.concatenate([b[d] for b in flat_theta]) for d in range(len(grid.axes))]
-    LW = np.concatenate(lw)
-    IDX = np.concatenate(idx_name)
-    base = post.logp
-    ax = grid.axis(name)
+    return int(max_n)
 
-    def widths(n: int) -> np.ndarray:
-        out = np.empty(sims)
-        for s_ in range(sims):
+
+def _width(marg: Marginal, level: float, kind: str) -> float:
+    """The width of the `level` interval of `kind` (an HPD region: its pieces' sum)."""
+    if kind == "hpd":
+        return sum(b - a for a, b in marg.hpd(level))
+    a, b = marg.central(level)
+    return b - a
+
+
+class _Simulation:
+    """Everything the simulated futures share, set up once.
+
+    Attributes
+    ----------
+    draw_args : list of ndarray, each (sims,)
+        The family's arguments at each simulation's parameter draw (a grid point,
+        by posterior mass).
+    U : ndarray, shape (sims, max_n)
+        Uniforms, mapped through each draw's quantile function into future rows.
+    terms : list
+        The future likelihood's compiled terms (over a placeholder column).
+    TH, LW, IDX : list of ndarray, ndarray, ndarray
+        Every grid point's parameter values, log weight, and node on the axis of
+        the parameter asked about.
+    """
+
+    def __init__(self, post: Posterior, model: Model, future: FutureRows, name: str, *,
+                 sims: int, seed: int, max_n: int):
+        f = fam.get(future.family)
+        params = post.compiled.params
+        grid = post.grid
+        rng = np.random.default_rng(seed)
+        # parameter draws: grid points by posterior mass
+        pts = _mixture_points(post)
+        pick = rng.choice(len(pts.weights), size=sims, p=pts.weights)
+        arg_fns = [param_function(expand_lets(a, model), params) for a in future.args]
+        self.draw_args = [np.asarray(fn([t[pick] for t in pts.theta]), float) for fn in arg_fns]
+        # future rows as uniforms mapped through each draw's quantile function
+        self.U = rng.random((sims, max_n))
+        # the future likelihood, compiled once over a placeholder column
+        col = future.column
+        self.fut_model = Model(model.params, (),
+                               (Likelihood(col, future.family, tuple(future.args), None, None,
+                                           ""),), model.lets)
+        placeholder = np.asarray(f.scipy(*[a[0] for a in self.draw_args]).ppf(self.U[0, :1]),
+                                 float)
+        ds, _ = DataSet().with_column(Column(col, placeholder))
+        try:
+            fut = compile_model(self.fut_model, ds)
+        except Exception as exc:  # the placeholder row may be off-support for other draws
+            raise ComputeError(f"cannot set up future rows of `{col}`: {exc}") from None
+        self.terms = [t for part in fut.likelihood for t in part.terms]
+        self.family, self.column, self.sims = f, col, sims
+        self.base = post.logp
+        self.axis = grid.axis(name)
+        self._grid_points(grid, grid.index(name))
+
+    def _grid_points(self, grid: Grid, k: int) -> None:
+        flat_theta, lw, idx_name = [], [], []
+        for start, stop in grid.blocks(1 << 22):
+            idx = grid.indices(start, stop)
+            flat_theta.append([a.values[i] for a, i in zip(grid.axes, idx)])
+            l_ = np.zeros(stop - start)
+            for a, i in zip(grid.axes, idx):
+                l_ += a.logw[i]
+            lw.append(l_)
+            idx_name.append(idx[k])
+        self.TH = [np.concatenate([b[d] for b in flat_theta]) for d in range(len(grid.axes))]
+        self.LW = np.concatenate(lw)
+        self.IDX = np.concatenate(idx_name)
+
+    def widths(self, n: int, level: float, kind: str) -> np.ndarray:
+        """The interval width after the first `n` future rows, per simulation."""
+        out = np.empty(self.sims)
+        for s_ in range(self.sims):
             with np.errstate(all="ignore"):
-                y = np.asarray(f.scipy(*[a[s_] for a in draw_args]).ppf(U[s_, :n]), float)
-            lp = base + _future_loglik(terms, TH, y, fut_model, col)
-            tot = lp + LW
+                y = np.asarray(self.family.scipy(*[a[s_] for a in self.draw_args]).ppf(
+                    self.U[s_, :n]), float)
+            lp = self.base + _future_loglik(self.terms, self.TH, y, self.fut_model, self.column)
+            tot = lp + self.LW
             m = np.max(tot)
             wt = np.exp(tot - m)
-            mass = np.bincount(IDX, weights=wt, minlength=ax.n)
-            marg = Marginal(ax, mass)
-            if kind == "hpd":
-                pieces = marg.hpd(level)
-                out[s_] = sum(b - a for a, b in pieces)
-            else:
-                a, b = marg.central(level)
-                out[s_] = b - a
+            mass = np.bincount(self.IDX, weights=wt, minlength=self.axis.n)
+            out[s_] = _width(Marginal(self.axis, mass), level, kind)
         return out
 
-    steps: list[SampleSizeStep] = []
-    cache: dict[int, tuple[float, float]] = {}
 
-    def expected(n: int) -> tuple[float, float]:
-        if n not in cache:
-            ws = widths(n)
-            cache[n] = (float(np.mean(ws)), float(np.std(ws, ddof=1) / math.sqrt(sims))
-                        if sims > 1 else 0.0)
-            steps.append(SampleSizeStep(n, *cache[n]))
-            if progress is not None:
-                progress(len(steps), 0)
-        return cache[n]
+class _Expected:
+    """The expected width at ``n`` further rows with its Monte Carlo error, each
+    ``n`` simulated once; `steps` lists those tried."""
 
-    # the current width, with no new rows
-    m0 = post.marginals[name]
-    w0 = (m0.central(level)[1] - m0.central(level)[0]) if kind == "central" else \
-        sum(b - a for a, b in m0.hpd(level))
-    if w0 <= width:
-        return SampleSize(0, w0, 0.0, (), f"the {level:g} interval of `{name}` is already "
-                          f"{w0:.4g} wide: no further observations are needed", sims, seed)
+    def __init__(self, sim: _Simulation, level: float, kind: str, progress):
+        self.sim, self.level, self.kind, self.progress = sim, level, kind, progress
+        self._tried: dict[int, SampleSizeStep] = {}
+
+    def __call__(self, n: int) -> SampleSizeStep:
+        if n not in self._tried:
+            ws = self.sim.widths(n, self.level, self.kind)
+            sims = self.sim.sims
+            err = float(np.std(ws, ddof=1) / math.sqrt(sims)) if sims > 1 else 0.0
+            self._tried[n] = SampleSizeStep(n, float(np.mean(ws)), err)
+            if self.progress is not None:
+                self.progress(len(self._tried), 0)
+        return self._tried[n]
+
+    def steps(self) -> tuple[SampleSizeStep, ...]:
+        return tuple(sorted(self._tried.values(), key=lambda s: s.n))
+
+
+def _search(expected: _Expected, width: float, max_n: int) -> SampleSizeStep | None:
+    """The smallest n whose expected width is at most `width`: doubling, then
+    bisection; None if not reached by `max_n`."""
     lo, hi = 0, 1
-    while True:
-        wv, _ = expected(hi)
-        if wv <= width:
-            break
+    while expected(hi).width > width:
         if hi >= max_n:
-            wv, err = expected(max_n)
-            return SampleSize(None, wv, err, tuple(sorted(steps, key=lambda s: s.n)),
-                              f"not reached by {max_n:,} further observations (expected "
-                              f"width there {wv:.4g}); raise `max`", sims, seed)
+            return None
         lo, hi = hi, min(2 * hi, max_n)
     while hi - lo > 1:
         mid = (lo + hi) // 2
-        if expected(mid)[0] <= width:
+        if expected(mid).width <= width:
             hi = mid
         else:
             lo = mid
-    wv, err = expected(hi)
-    msg = ""
-    if abs(wv - width) < 2 * err:
-        msg = "the expected width is within two Monte Carlo errors of the target; more " \
-              "simulations would firm up n"
-    return SampleSize(hi, wv, err, tuple(sorted(steps, key=lambda s: s.n)), msg, sims, seed)
+    return expected(hi)
 
 
 #: Most points the grid of a sample-size search may have.

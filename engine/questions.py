@@ -15,7 +15,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from typing import Iterator, Sequence
+from typing import Iterator, NamedTuple, Sequence
 
 import numpy as np
 import sympy as sp
@@ -30,9 +30,27 @@ from .posterior import BLOCK, Estimate, Posterior, _block_theta, combine, evalua
 # ---------------------------------------------------------------------------
 # walking a computed posterior
 
-def walk(post: Posterior, *, block: int = BLOCK) -> Iterator[tuple[tuple, list, list]]:
-    """Blocks of ``(idx, theta, weights)``; ``weights[k]`` are the normalised
-    weights of level k (0 the fine grid), zero where a coarse level has no node."""
+class WeightedBlock(NamedTuple):
+    """One block of a computed posterior's grid.
+
+    Attributes
+    ----------
+    idx : tuple of ndarray
+        Per axis, the node index of each point.
+    theta : list of ndarray
+        Per parameter, the value at each point.
+    weights : list of ndarray
+        ``weights[k]``: the normalised posterior weight of each point on level k
+        (0 the fine grid), zero where a coarse level has no node.
+    """
+
+    idx: tuple
+    theta: list
+    weights: list
+
+
+def walk(post: Posterior, *, block: int = BLOCK) -> Iterator[WeightedBlock]:
+    """The grid of `post` in blocks, with the posterior weights of every level."""
     grid = post.grid
     levels = len(post.coarse_marginals)
     for start, stop in grid.blocks(block):
@@ -53,17 +71,40 @@ def walk(post: Posterior, *, block: int = BLOCK) -> Iterator[tuple[tuple, list, 
                 lwc += a.coarse[lev][i]
             with np.errstate(invalid="ignore"):
                 ws.append(np.where(np.isfinite(lwc), np.exp(lp + lwc - post.log_mass[lev + 1]), 0.0))
-        yield idx, theta, ws
+        yield WeightedBlock(idx, theta, ws)
 
 
-def _compile(post: Posterior, expr: sp.Basic) -> tuple[sp.Basic, ParamFunction]:
+@dataclass(frozen=True)
+class _Expression:
+    """A question's expression with lets expanded, and compiled over grid points."""
+
+    expr: sp.Basic
+    fn: ParamFunction
+
+
+def _compile(post: Posterior, expr: sp.Basic) -> _Expression:
     e = expand_lets(expr, post.compiled.model)
     names = {p.name for p in post.compiled.params}
     bad = {s.name for s in e.free_symbols} - names
     if bad:
         raise ModelError(f"`{sorted(bad)[0]}` is a data column; a question is about "
                          "parameters and lets")
-    return e, param_function(e, post.compiled.params)
+    return _Expression(e, param_function(e, post.compiled.params))
+
+
+def _constant(e: sp.Basic) -> float:
+    """The value of an expression that is a number (perhaps after simplification,
+    as p / p), refused unless finite and real."""
+    value = complex(e)
+    if value.imag != 0 or not math.isfinite(value.real):
+        raise ComputeError(f"the expression is `{e}`, not a finite real number")
+    return value.real
+
+
+def _not_finite(post: Posterior, theta, k: int) -> ComputeError:
+    where = ", ".join(f"{a.name} = {t[k]:.6g}" for a, t in zip(post.grid.axes, theta))
+    return ComputeError(f"the expression is not a finite number at {where}, where the "
+                        "posterior is not zero")
 
 
 def _truncated(est: Estimate, term: float) -> Estimate:
@@ -101,31 +142,27 @@ class Moments:
 
 def moments(post: Posterior, expr: sp.Expr) -> Moments:
     """Posterior mean and sd of `expr` (parameters and lets)."""
-    e, fn = _compile(post, expr)
+    ex = _compile(post, expr)
+    e, fn = ex.expr, ex.fn
     if isinstance(e, sp.Symbol):
         return Moments(post.param_mean(e.name), post.param_sd(e.name))
     if e.is_number:
-        # a constant (perhaps after simplification): its own mean, and sd 0
-        value = complex(e)
-        if value.imag != 0 or not math.isfinite(value.real):
-            raise ComputeError(f"the expression is `{e}`, not a finite real number")
-        return Moments(Estimate(value.real, 0.0, "exact"), Estimate(0.0, 0.0, "exact"))
+        # a constant: its own mean, and sd 0
+        return Moments(Estimate(_constant(e), 0.0, "exact"), Estimate(0.0, 0.0, "exact"))
     L = post.levels + 1
     s0 = np.zeros(L)
     s1 = np.zeros(L)
     s2 = np.zeros(L)
     shift = None
     vmin, vmax = math.inf, -math.inf
-    for idx, theta, ws in walk(post):
+    for b in walk(post):
+        theta, ws = b.theta, b.weights
         v = fn(theta)
         live = ws[0] > 0
         if live.any():
             vmin, vmax = min(vmin, float(np.min(v[live]))), max(vmax, float(np.max(v[live])))
         if np.any(~np.isfinite(v[live])):
-            k = int(np.flatnonzero(live & ~np.isfinite(v))[0])
-            where = ", ".join(f"{a.name} = {t[k]:.6g}" for a, t in zip(post.grid.axes, theta))
-            raise ComputeError(f"the expression is not a finite number at {where}, where the "
-                               "posterior is not zero")
+            raise _not_finite(post, theta, int(np.flatnonzero(live & ~np.isfinite(v))[0]))
         if shift is None:
             shift = float(np.sum(v * ws[0]) / max(np.sum(ws[0]), 1e-300))
         d = np.where(np.isfinite(v), v - shift, 0.0)
@@ -162,7 +199,16 @@ class _Rel:
 _OPS = regions.OPS
 
 
-def _relations(cond: sp.Basic, post: Posterior):
+@dataclass(frozen=True)
+class _Judged:
+    """A condition as its and / or / not skeleton over numbered relations, each
+    compiled with its gradients."""
+
+    tree: tuple
+    rels: list[_Rel]
+
+
+def _relations(cond: sp.Basic, post: Posterior) -> _Judged:
     """Compile every relational of `cond` (with gradients) and the boolean skeleton."""
     params = post.compiled.params
     rels: list[_Rel] = []
@@ -191,7 +237,7 @@ def _relations(cond: sp.Basic, post: Posterior):
     tree = regions.boolean_tree(cond, relation)
     if tree is None:
         raise ComputeError(f"`{cond}` is not a condition quadrat can judge")
-    return tree, rels
+    return _Judged(tree, rels)
 
 
 def _fraction(rel: _Rel, theta, half: list[np.ndarray]) -> np.ndarray:
@@ -223,11 +269,11 @@ def _fraction(rel: _Rel, theta, half: list[np.ndarray]) -> np.ndarray:
 def _defined(post: Posterior, rels: list[_Rel]) -> None:
     """Refuse a condition whose sides are not numbers where the posterior has mass,
     whichever way it is then integrated."""
-    for _idx, theta, ws in walk(post):
+    for b in walk(post):
         for r in rels:
             with np.errstate(all="ignore"):
-                s = np.broadcast_to(np.asarray(r.s(theta), float), ws[0].shape)
-            _undefined(post, theta, np.where(np.isnan(s), np.nan, 0.0), ws[0])
+                s = np.broadcast_to(np.asarray(r.s(b.theta), float), b.weights[0].shape)
+            _undefined(post, b.theta, np.where(np.isnan(s), np.nan, 0.0), b.weights[0])
 
 
 def _undefined(post: Posterior, theta, ind: np.ndarray, w: np.ndarray) -> None:
@@ -256,7 +302,15 @@ def _judge(tree, fr: list[np.ndarray], n: int) -> np.ndarray:
     return out
 
 
-def _one_param_set(cond: sp.Basic, post: Posterior):
+@dataclass(frozen=True)
+class _OneParamSet:
+    """A condition on one continuous parameter as the intervals where it holds."""
+
+    name: str
+    pieces: list[tuple[float, float]]
+
+
+def _one_param_set(cond: sp.Basic, post: Posterior) -> _OneParamSet | None:
     """A condition on one continuous parameter made of ``param OP number``
     comparisons joined by and / or / not (``0.2 < p < 0.4``): the parameter's
     name and the intervals where it holds, so that the marginal's cdf answers
@@ -291,11 +345,11 @@ def _one_param_set(cond: sp.Basic, post: Posterior):
                 pieces[-1] = (pieces[-1][0], b)
             else:
                 pieces.append((a, b))
-    return par[0].name, pieces
+    return _OneParamSet(par[0].name, pieces)
 
 
-def _single_param(cond: sp.Basic, post: Posterior):
-    """``param OP number`` for a continuous parameter: (name, op, value) or None."""
+def _single_param(cond: sp.Basic, post: Posterior) -> _OneParamSet | None:
+    """``param OP number`` for a continuous parameter, or None."""
     if type(cond) not in _OPS or _OPS[type(cond)] in ("eq", "ne"):
         return None
     lhs, rhs, op = cond.lhs, cond.rhs, _OPS[type(cond)]
@@ -306,12 +360,18 @@ def _single_param(cond: sp.Basic, post: Posterior):
         return None
     for p in post.compiled.params:
         if p.symbol == lhs and not p.discrete:
-            return p.name, op, float(rhs)
+            x = float(rhs)
+            return _OneParamSet(p.name, [(-math.inf, x)] if op in ("lt", "le") else
+                                [(x, math.inf)])
     return None
 
 
 def probability(post: Posterior, cond: sp.Basic) -> Estimate:
-    """Posterior probability of condition `cond` (parameters and lets)."""
+    """Posterior probability of condition `cond` (parameters and lets).
+
+    A condition on one continuous parameter is read off its marginal's cdf; others
+    are integrated along grid lines (`regions`) where the grid allows, else by the
+    cell fractions (`_cell_fractions`)."""
     e = expand_lets(cond, post.compiled.model)
     names = {p.name for p in post.compiled.params}
     bad = {s.name for s in e.free_symbols} - names
@@ -320,102 +380,155 @@ def probability(post: Posterior, cond: sp.Basic) -> Estimate:
                          "parameters and lets")
     single = _single_param(e, post) or _one_param_set(e, post)
     if single is not None:
-        if len(single) == 3:
-            name, op, x = single
-            pieces = [(-math.inf, x)] if op in ("lt", "le") else [(x, math.inf)]
-        else:
-            name, pieces = single
         vals = []
-        for m in post._levels_of(name):
+        for m in post._levels_of(single.name):
             vals.append(sum((1.0 if b == math.inf else m.cdf(b)) -
-                            (0.0 if a == -math.inf else m.cdf(a)) for a, b in pieces))
+                            (0.0 if a == -math.inf else m.cdf(a)) for a, b in single.pieces))
         return _truncated(_levels_estimate(post, vals), post.diagnostics.missing)
-    _defined(post, _relations(e, post)[1])
+    judged = _relations(e, post)
+    _defined(post, judged.rels)
     lines = regions.region_probability(post, e)
     if lines is not None:
         # high order, but not a clean power series (the cut moves across the cells as
         # the grid coarsens): the difference with the first coarse level is the error
         return _truncated(_levels_estimate(post, lines, smooth=False),
                           post.diagnostics.missing)
-    tree, rels = _relations(e, post)
+    vals = _cell_fractions(post, judged)
+    return _truncated(_levels_estimate(post, vals, smooth=False), post.diagnostics.missing)
+
+
+def _cell_fractions(post: Posterior, judged: "_Judged") -> list[float]:
+    """P(condition) on every level, each node counting the fraction of its box where
+    the condition holds."""
     L = post.levels + 1
     tot = np.zeros(L)
     norm = np.zeros(L)
     halves = []
     for lev in range(L):
         halves.append([a.spacing() * (a.nest ** lev) / 2 for a in post.grid.axes])
-    for idx, theta, ws in walk(post):
+    for b in walk(post):
+        theta, ws = b.theta, b.weights
         for lev in range(L):
-            half = [h[i] for h, i in zip(halves[lev], idx)]
-            fr = [_fraction(r, theta, half) for r in rels]
-            ind = _judge(tree, fr, len(theta[0]))
+            half = [h[i] for h, i in zip(halves[lev], b.idx)]
+            fr = [_fraction(r, theta, half) for r in judged.rels]
+            ind = _judge(judged.tree, fr, len(theta[0]))
             _undefined(post, theta, ind, ws[lev])
             tot[lev] += np.dot(ws[lev], np.nan_to_num(ind))
             norm[lev] += ws[lev].sum()
-    vals = [float(np.clip(tot[k] / norm[k], 0.0, 1.0)) for k in range(L)]
-    return _truncated(_levels_estimate(post, vals, smooth=False), post.diagnostics.missing)
+    return [float(np.clip(tot[k] / norm[k], 0.0, 1.0)) for k in range(L)]
 
 
 # ---------------------------------------------------------------------------
 # quantiles and distributions of derived quantities
 
 def quantile(post: Posterior, expr: sp.Expr, q: float) -> Estimate:
-    """The q-quantile of `expr` under the posterior."""
+    """The q-quantile of `expr` under the posterior.
+
+    A parameter's quantile comes from its marginal, a strictly monotone function of
+    one parameter maps that parameter's quantile (`_monotone_quantile`); otherwise
+    ``P(expr <= x) = q`` is solved on every level (`_solve_levels`) from a bracket
+    read off the ranked values at the grid points (`_Ranked`)."""
     if not 0 < q < 1:
         raise ComputeError(f"quantile level must be between 0 and 1 (exclusive); got {q:g}")
-    e, fn = _compile(post, expr)
+    ex = _compile(post, expr)
+    e = ex.expr
     if isinstance(e, sp.Symbol):
         return post.quantile(e.name, q)
     if e.is_number:
-        # a constant (perhaps after simplification, as p / p): its own quantiles
-        value = complex(e)
-        if value.imag != 0 or not math.isfinite(value.real):
-            raise ComputeError(f"the expression is `{e}`, not a finite real number")
-        return Estimate(value.real, 0.0, "exact")
+        return Estimate(_constant(e), 0.0, "exact")
     mono = _monotone_in_one(post, e)
     if mono is not None:
-        # a strictly monotone function of one parameter: its quantile is the function
-        # of the parameter's quantile (q, or 1 - q where it decreases)
-        name, g, rising = mono
-        est = post.quantile(name, q if rising else 1 - q)
+        return _monotone_quantile(post, mono, q)
+    ranked = _ranked(post, ex.fn)
+    if all(ax.discrete for ax in post.grid.axes):
+        return Estimate(ranked.at(q - 1e-12), 0.0, "exact")
+    a, b = ranked.bracket(q)
+    cdf = regions.region_cdf(post, e)
+    out = _solve_levels(post, e, q, cdf, a, b)
+    if out[0] is None:
+        raise ComputeError("could not solve for the quantile")
+    est = _levels_estimate(post, out, smooth=False)
+    miss = post.diagnostics.missing
+    if miss > 0 and cdf is not None:
+        # how far the quantile moves if the mass beyond the grid were added
+        x0 = out[0]
+        dx = 1e-5 * max(abs(x0), abs(b - a), 1e-300)
+        p_hi, p_lo = cdf(x0 + dx, 0), cdf(x0 - dx, 0)
+        if p_hi is not None and p_lo is not None and p_hi > p_lo:
+            est = _truncated(est, miss * 2 * dx / (p_hi - p_lo))
+    return est
 
-        def at(v):
-            return float(g([np.array([v]) if p.name == name else np.array([0.0])
-                            for p in post.compiled.params])[0])
 
-        value = at(est.value)
-        err = None
-        if est.error is not None:
-            step = max(abs(est.value) * 1e-7, 1e-12)
-            err = abs(at(est.value + step) - at(est.value - step)) / (2 * step) * est.error
-        return Estimate(value, err, est.method)
-    # a first guess from the weighted values, then solve P(expr <= x) = q
+@dataclass(frozen=True)
+class _Monotone:
+    """An expression strictly monotone in one continuous parameter."""
+
+    name: str
+    fn: ParamFunction
+    rising: bool
+
+
+def _monotone_quantile(post: Posterior, mono: _Monotone, q: float) -> Estimate:
+    """The function of the parameter's quantile (q, or 1 - q where it decreases),
+    its error carried through the slope."""
+    est = post.quantile(mono.name, q if mono.rising else 1 - q)
+
+    def at(v):
+        return float(mono.fn([np.array([v]) if p.name == mono.name else np.array([0.0])
+                              for p in post.compiled.params])[0])
+
+    value = at(est.value)
+    err = None
+    if est.error is not None:
+        step = max(abs(est.value) * 1e-7, 1e-12)
+        err = abs(at(est.value + step) - at(est.value - step)) / (2 * step) * est.error
+    return Estimate(value, err, est.method)
+
+
+@dataclass(frozen=True)
+class _Ranked:
+    """An expression's values at the grid points with mass, in increasing order,
+    and the posterior mass up to each (normalised to end at 1)."""
+
+    values: np.ndarray
+    cdf: np.ndarray
+
+    def at(self, p: float) -> float:
+        """The value where the cumulative mass first reaches `p`."""
+        return float(self.values[min(int(np.searchsorted(self.cdf, p)), len(self.values) - 1)])
+
+    def bracket(self, q: float) -> tuple[float, float]:
+        """Values about the q-quantile: those at q - 0.05 and q + 0.05, one further out."""
+        lo_i = int(np.searchsorted(self.cdf, max(q - 0.05, 0.0)))
+        hi_i = int(np.searchsorted(self.cdf, min(q + 0.05, 1.0)))
+        return (float(self.values[max(lo_i - 1, 0)]),
+                float(self.values[min(hi_i + 1, len(self.values) - 1)]))
+
+
+def _ranked(post: Posterior, fn: ParamFunction) -> _Ranked:
     vals, wts = [], []
-    for idx, theta, ws in walk(post):
+    for b in walk(post):
+        w0 = b.weights[0]
         with np.errstate(all="ignore"):
-            v = np.broadcast_to(np.asarray(fn(theta), float), ws[0].shape)
-        keep = ws[0] > 0
+            v = np.broadcast_to(np.asarray(fn(b.theta), float), w0.shape)
+        keep = w0 > 0
         if np.any(~np.isfinite(v[keep])):
-            k = int(np.flatnonzero(keep & ~np.isfinite(v))[0])
-            where = ", ".join(f"{a.name} = {t[k]:.6g}" for a, t in zip(post.grid.axes, theta))
-            raise ComputeError(f"the expression is not a finite number at {where}, where the "
-                               "posterior is not zero")
+            raise _not_finite(post, b.theta, int(np.flatnonzero(keep & ~np.isfinite(v))[0]))
         vals.append(v[keep])
-        wts.append(ws[0][keep])
+        wts.append(w0[keep])
     v = np.concatenate(vals)
     w = np.concatenate(wts)
     order = np.argsort(v, kind="stable")
     c = np.cumsum(w[order])
     c /= c[-1]
-    lo_i = int(np.searchsorted(c, max(q - 0.05, 0.0)))
-    hi_i = int(np.searchsorted(c, min(q + 0.05, 1.0)))
-    a = float(v[order[max(lo_i - 1, 0)]])
-    b = float(v[order[min(hi_i + 1, len(v) - 1)]])
-    if all(ax.discrete for ax in post.grid.axes):
-        x = float(v[order[min(int(np.searchsorted(c, q - 1e-12)), len(v) - 1)]])
-        return Estimate(x, 0.0, "exact")
+    return _Ranked(v[order], c)
+
+
+def _solve_levels(post: Posterior, e: sp.Expr, q: float, cdf, a: float, b: float
+                  ) -> list[float | None]:
+    """The root of P(e <= x) = q on every level (None where it cannot be bracketed),
+    by line integration where `cdf` answers, else by cell fractions."""
     out = []
-    cdf = regions.region_cdf(post, e)
     for lev in range(post.levels + 1):
         def f(x, lev=lev):
             if cdf is not None:
@@ -441,24 +554,12 @@ def quantile(post: Posterior, expr: sp.Expr, q: float) -> Estimate:
                                        rtol=1e-13, maxiter=200))
         except ValueError:
             out.append(None)
-    if out[0] is None:
-        raise ComputeError("could not solve for the quantile")
-    est = _levels_estimate(post, out, smooth=False)
-    miss = post.diagnostics.missing
-    if miss > 0 and cdf is not None:
-        # how far the quantile moves if the mass beyond the grid were added
-        x0 = out[0]
-        dx = 1e-5 * max(abs(x0), abs(b - a), 1e-300)
-        p_hi, p_lo = cdf(x0 + dx, 0), cdf(x0 - dx, 0)
-        if p_hi is not None and p_lo is not None and p_hi > p_lo:
-            est = _truncated(est, miss * 2 * dx / (p_hi - p_lo))
-    return est
+    return out
 
 
-def _monotone_in_one(post: Posterior, e: sp.Expr):
-    """(name, compiled e, rising) when `e` reads one continuous parameter and is
-    strictly monotone over its grid axis (checked on a mesh four times finer than
-    the nodes), else None."""
+def _monotone_in_one(post: Posterior, e: sp.Expr) -> _Monotone | None:
+    """`e` when it reads one continuous parameter and is strictly monotone over its
+    grid axis (checked on a mesh four times finer than the nodes), else None."""
     params = post.compiled.params
     used = [p for p in params if p.symbol in e.free_symbols]
     if len(used) != 1 or used[0].discrete:
@@ -474,19 +575,21 @@ def _monotone_in_one(post: Posterior, e: sp.Expr):
         return None
     d = np.diff(g)
     if np.all(d > 0):
-        return p.name, fn, True
+        return _Monotone(p.name, fn, True)
     if np.all(d < 0):
-        return p.name, fn, False
+        return _Monotone(p.name, fn, False)
     return None
 
 
 def _prob_le(post: Posterior, e: sp.Expr, x: float, lev: int) -> float:
-    tree, rels = _relations(sp.Le(e, x), post)
+    judged = _relations(sp.Le(e, x), post)
     half_axes = [a.spacing() * (a.nest ** lev) / 2 for a in post.grid.axes]
     tot = norm = 0.0
-    for idx, theta, ws in walk(post):
-        half = [h[i] for h, i in zip(half_axes, idx)]
-        ind = _judge(tree, [_fraction(r, theta, half) for r in rels], len(theta[0]))
+    for b in walk(post):
+        theta, ws = b.theta, b.weights
+        half = [h[i] for h, i in zip(half_axes, b.idx)]
+        ind = _judge(judged.tree, [_fraction(r, theta, half) for r in judged.rels],
+                     len(theta[0]))
         _undefined(post, theta, ind, ws[lev])
         tot += float(np.dot(ws[lev], np.nan_to_num(ind)))
         norm += float(ws[lev].sum())
@@ -518,16 +621,16 @@ def distribution(post: Posterior, expr: sp.Expr, *, bins: int = 60) -> Distribut
     """Mean, sd, quantiles and a density histogram of `expr`."""
     mo = moments(post, expr)
     qs = {q: quantile(post, expr, q) for q in (0.025, 0.5, 0.975)}
-    e, fn = _compile(post, expr)
+    fn = _compile(post, expr).fn
     lo = qs[0.025].value - 2 * mo.sd.value
     hi = qs[0.975].value + 2 * mo.sd.value
     if not hi > lo:
         hi = lo + 1.0
     edges = np.linspace(lo, hi, bins + 1)
     hist = np.zeros(bins)
-    for idx, theta, ws in walk(post):
-        v = fn(theta)
-        h, _ = np.histogram(v, bins=edges, weights=ws[0])
+    for b in walk(post):
+        v = fn(b.theta)
+        h, _ = np.histogram(v, bins=edges, weights=b.weights[0])
         hist += h
     dens = hist / np.diff(edges)
     return Distribution(mo.mean, mo.sd, qs, edges, dens)

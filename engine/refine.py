@@ -10,15 +10,15 @@ from __future__ import annotations
 
 import math
 import warnings
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Sequence
 
 import numpy as np
-import scipy.special as sc
 from scipy import optimize
 
 from .errors import ComputeError, GridError
-from .grid import DEFAULT_POINTS, MAX_AXIS_POINTS, Axis, Grid, make_axis
+from .grid import (DEFAULT_POINTS, MAX_AXIS_POINTS, SCALE_TABLE, Axis, Grid, make_axis,
+                   unconstrained_scale)
 from .model import Compiled, Param
 from .posterior import Posterior, compute, evaluate_block
 
@@ -30,9 +30,6 @@ CHECK_POINTS = 200_000
 AUTO_BUDGET = 1 << 22
 #: Nodes per curvature sd that `grid auto` aims for on every continuous axis.
 PER_SD = 6.0
-#: How far the log / logit scales may reach: beyond these, values round to the
-#: domain's edge in double precision (1 - 1e-16 == 1).
-U_LIMITS = {"log": (-700.0, 700.0), "logit": (-700.0, 36.0), "linear": (-math.inf, math.inf)}
 
 
 @dataclass(frozen=True)
@@ -80,46 +77,13 @@ def default_points(dims: int) -> int:
 
 # -- unconstrained coordinates -------------------------------------------------
 
-def _scale_for(p: Param) -> str:
-    if p.kind == "positive":
-        return "log"
-    if p.kind in ("unit", "interval"):
-        return "logit"
-    return "linear"
-
-
-def _to_value(u, p: Param, scale: str):
-    if scale == "log":
-        return p.lo + np.exp(u)
-    if scale == "logit":
-        return p.lo + (p.hi - p.lo) * sc.expit(u)
-    return u
-
-
-def _to_u(v, p: Param, scale: str):
-    with np.errstate(all="ignore"):
-        if scale == "log":
-            return np.log(v - p.lo)
-        if scale == "logit":
-            return sc.logit((v - p.lo) / (p.hi - p.lo))
-    return v
-
-
-def _logjac(u, scale: str, p: Param):
-    if scale == "log":
-        return u
-    if scale == "logit":
-        return math.log(p.hi - p.lo) + sc.log_expit(u) + sc.log_expit(-u)
-    return np.zeros_like(u)
-
-
 class _Target:
     """The log posterior in unconstrained coordinates (Jacobian included)."""
 
     def __init__(self, compiled: Compiled, fixed: dict[str, float]):
         self.c = compiled
         self.cont = [p for p in compiled.params if not p.discrete]
-        self.scales = [_scale_for(p) for p in self.cont]
+        self.scales = [SCALE_TABLE[unconstrained_scale(p)] for p in self.cont]
         self.fixed = fixed
 
     def theta(self, U: np.ndarray) -> list[np.ndarray]:
@@ -130,7 +94,7 @@ class _Target:
             if p.discrete:
                 out.append(np.full(U.shape[0], self.fixed[p.name]))
             else:
-                out.append(np.asarray(_to_value(U[:, k], p, self.scales[k]), float))
+                out.append(np.asarray(self.scales[k].to_value(U[:, k], p.lo, p.hi), float))
                 k += 1
         return out
 
@@ -140,10 +104,10 @@ class _Target:
             lp = evaluate_block(self.c, self.theta(U))
         # beyond the scales' limits values round to the domain's edge: out of bounds
         for k, scale in enumerate(self.scales):
-            lo, hi = U_LIMITS[scale]
+            lo, hi = scale.limits
             lp = np.where((U[:, k] < lo) | (U[:, k] > hi), -np.inf, lp)
         for k, p in enumerate(self.cont):
-            lp = lp + _logjac(U[:, k], self.scales[k], p)
+            lp = lp + self.scales[k].logjac(U[:, k], p.lo, p.hi)
         return np.where(np.isnan(lp), -np.inf, lp)
 
 
@@ -199,52 +163,77 @@ def _hessian(f, x: np.ndarray, h: np.ndarray) -> np.ndarray:
     return H
 
 
-def find_modes(compiled: Compiled, fixed: dict[str, float], *, starts: int = 8,
-               seed: int = 0) -> list[tuple[np.ndarray, float, np.ndarray]]:
-    """Local modes of the posterior in unconstrained coordinates.
+@dataclass(frozen=True)
+class LocalMode:
+    """A local mode of the posterior in the unconstrained coordinates of `grid auto`.
 
-    Returns a list of ``(u, log density, sd)`` with `sd` the per-axis standard
-    deviation from the curvature there, best first; modes closer than two sds
-    to a better one are merged into it.
+    Attributes
+    ----------
+    u : ndarray, shape (d,)
+        Where it is, one coordinate per continuous parameter (the model's order).
+    log_density : float
+        The unconstrained log density there (the scales' Jacobians included).
+    sd : ndarray, shape (d,)
+        Per-axis standard deviation from the curvature there.
+    """
+
+    u: np.ndarray
+    log_density: float
+    sd: np.ndarray
+
+
+def find_modes(compiled: Compiled, fixed: dict[str, float], *, starts: int = 8,
+               seed: int = 0) -> list[LocalMode]:
+    """Local modes of the posterior in unconstrained coordinates, best first.
+
+    Modes closer than two sds to a better one are merged into it, and modes below
+    ``exp(-40)`` of the best are dropped (no mass worth a box).
     """
     with np.errstate(all="ignore"), warnings.catch_warnings():
         warnings.simplefilter("ignore")
         return _find_modes(compiled, fixed, starts=starts, seed=seed)
 
 
-def _find_modes(compiled: Compiled, fixed: dict[str, float], *, starts: int, seed: int):
+def _find_modes(compiled: Compiled, fixed: dict[str, float], *, starts: int, seed: int
+                ) -> list[LocalMode]:
     target = _Target(compiled, fixed)
-    d = len(target.cont)
-    if d == 0:
+    if not target.cont:
         return []
     rng = np.random.default_rng(seed)
-    found = []
-    for x0 in _starts(target, rng, starts):
-        def nf(x):
-            v = target(x[None, :])[0]
-            return -v if np.isfinite(v) else 1e300
-        r = optimize.minimize(nf, x0, method="Nelder-Mead",
-                              options={"xatol": 1e-7, "fatol": 1e-10, "maxiter": 2000 * d,
-                                       "adaptive": d > 2})
-        r2 = optimize.minimize(nf, r.x, method="BFGS", options={"gtol": 1e-8})
-        x = r2.x if r2.fun <= r.fun and np.all(np.isfinite(r2.x)) else r.x
-        fx = -min(r.fun, r2.fun)
-        if not np.isfinite(fx) or fx < -1e299:
-            continue
-        sd = _curvature_sd(target, x)
-        found.append((x, fx, sd))
+    found = [m for m in (_climb(target, x0) for x0 in _starts(target, rng, starts))
+             if m is not None]
     if not found:
         raise ComputeError("no mode found: the posterior is zero at every point the optimiser "
                            "reached")
-    found.sort(key=lambda t: -t[1])
-    modes = []
-    for x, fx, sd in found:
-        if fx < found[0][1] - 40:   # below exp(-40) of the best: no mass worth a box
+    found.sort(key=lambda m: -m.log_density)
+    modes: list[LocalMode] = []
+    for m in found:
+        if m.log_density < found[0].log_density - 40:
             continue
-        if any(np.all(np.abs(x - m[0]) < 2 * np.maximum(sd, m[2])) for m in modes):
+        if any(np.all(np.abs(m.u - k.u) < 2 * np.maximum(m.sd, k.sd)) for k in modes):
             continue
-        modes.append((x, fx, sd))
+        modes.append(m)
     return modes
+
+
+def _climb(target: _Target, x0: np.ndarray) -> LocalMode | None:
+    """The mode reached from `x0` (Nelder-Mead, then BFGS), or None where the
+    density stays zero."""
+    d = len(target.cont)
+
+    def nf(x):
+        v = target(x[None, :])[0]
+        return -v if np.isfinite(v) else 1e300
+
+    r = optimize.minimize(nf, x0, method="Nelder-Mead",
+                          options={"xatol": 1e-7, "fatol": 1e-10, "maxiter": 2000 * d,
+                                   "adaptive": d > 2})
+    r2 = optimize.minimize(nf, r.x, method="BFGS", options={"gtol": 1e-8})
+    x = r2.x if r2.fun <= r.fun and np.all(np.isfinite(r2.x)) else r.x
+    fx = -min(r.fun, r2.fun)
+    if not np.isfinite(fx) or fx < -1e299:
+        return None
+    return LocalMode(x, fx, _curvature_sd(target, x))
 
 
 def _symbolic_hessian_u(target: _Target, x: np.ndarray) -> np.ndarray | None:
@@ -252,28 +241,18 @@ def _symbolic_hessian_u(target: _Target, x: np.ndarray) -> np.ndarray | None:
     in the parameters (chain rule through each axis's transform), or None."""
     th = target.theta(x[None, :])
     point = {p.name: float(t[0]) for p, t in zip(target.c.params, th)}
-    r = target.c.curvature(point)
-    if r is None:
+    curv = target.c.curvature(point)
+    if curv is None:
         return None
-    g, H = r
+    g, H = curv.gradient, curv.hessian
     d1 = np.empty(len(x))    # d value / du
     d2 = np.empty(len(x))    # d2 value / du2
     lj2 = np.empty(len(x))   # d2 log|d value/du| / du2
     for k, (p, scale) in enumerate(zip(target.cont, target.scales)):
-        u = x[k]
-        if scale == "log":
-            if u > 700:
-                return None
-            d1[k] = d2[k] = math.exp(u)
-            lj2[k] = 0.0
-        elif scale == "logit":
-            s_ = float(sc.expit(u))
-            w = p.hi - p.lo
-            d1[k] = w * s_ * (1 - s_)
-            d2[k] = d1[k] * (1 - 2 * s_)
-            lj2[k] = -2 * s_ * (1 - s_)
-        else:
-            d1[k], d2[k], lj2[k] = 1.0, 0.0, 0.0
+        der = scale.derivatives(x[k], p.lo, p.hi)
+        if der is None:
+            return None
+        d1[k], d2[k], lj2[k] = der.first, der.second, der.logjac_second
     Hu = H * np.outer(d1, d1) + np.diag(g * d2 + lj2)
     return Hu if np.all(np.isfinite(Hu)) else None
 
@@ -314,6 +293,11 @@ def auto_grid(compiled: Compiled, *, points: dict[str, int] | None = None,
               max_widen: int = 40) -> AutoGrid:
     """Bounds for every axis that hold all but `edge_mass` at each edge.
 
+    The phases: the modes and a box of `width` curvature sds around them
+    (`_initial_box`), checking passes that widen every end holding too much mass
+    (`_widen`), the points each axis needs (`_sized_counts`), and the verdict with
+    its notes (`_verdict`).
+
     Parameters
     ----------
     compiled : Compiled
@@ -327,149 +311,259 @@ def auto_grid(compiled: Compiled, *, points: dict[str, int] | None = None,
     max_widen : int, keyword-only
         The most widening passes.
     """
-    params = compiled.params
-    disc = [p for p in params if p.discrete]
-    cont = [p for p in params if not p.discrete]
+    cont, disc = _auto_iv(compiled)
+    # discrete parameters: fix them at the best value of a coarse look for the mode search
+    fixed = _best_discrete(compiled, disc, cont) if disc else {}
+    modes = find_modes(compiled, fixed) if cont else []
+    box = _initial_box(cont, modes, width)
+    # the threshold is shared by every end of every continuous axis, so that the
+    # box as a whole leaves out less than `edge_mass`
+    per_end = edge_mass / (2 * max(len(cont), 1))
+    wid = _widen(compiled, box, per_end, max_widen)
+    counts = _sized_counts(compiled, wid, points)
+    specs = _box_specs(compiled.params, wid.box, counts)
+    return _verdict(compiled, fixed, modes, wid, specs, per_end)
+
+
+def _auto_iv(compiled: Compiled) -> tuple[list[Param], list[Param]]:
+    """The continuous and the discrete parameters, once a check pass is affordable."""
+    cont = [p for p in compiled.params if not p.discrete]
+    disc = [p for p in compiled.params if p.discrete]
     if 3 ** len(cont) * math.prod(len(p.values) for p in disc) > 25 * CHECK_POINTS:
         raise ComputeError(
             f"grid auto: {len(cont)} continuous parameters; even 3 points per axis make "
             f"3^{len(cont)} points to check. A tensor grid grows as N^d and is the wrong tool "
             "at this many dimensions; set small grids yourself with `grid`, or fix some "
             "parameters")
-    npts = default_points(max(len(cont), 1))
-    # discrete parameters: fix them at the best value of a coarse look for the mode search
-    fixed = {}
-    if disc:
-        fixed = _best_discrete(compiled, disc, cont)
-    modes = find_modes(compiled, fixed) if cont else []
-    lo_u = {}
-    hi_u = {}
-    scales = {p.name: _scale_for(p) for p in cont}
-    sd_u = {}
+    return cont, disc
+
+
+@dataclass(frozen=True)
+class _Box:
+    """The region `grid auto` works on, per continuous axis, in unconstrained u.
+
+    Attributes
+    ----------
+    lo, hi : dict of str to float
+        The ends.
+    sd : dict of str to float
+        The narrowest curvature sd over the modes.
+    scales : dict of str to str
+        The unconstrained scale (a key of `SCALE_TABLE`).
+    lo_moves, hi_moves : dict of str to int
+        How often each end was widened.
+    """
+
+    lo: dict[str, float]
+    hi: dict[str, float]
+    sd: dict[str, float]
+    scales: dict[str, str]
+    lo_moves: dict[str, int]
+    hi_moves: dict[str, int]
+
+    def span(self, name: str) -> float:
+        return self.hi[name] - self.lo[name]
+
+    def limits(self, name: str) -> tuple[float, float]:
+        return SCALE_TABLE[self.scales[name]].limits
+
+
+def _initial_box(cont: Sequence[Param], modes: Sequence[LocalMode], width: float) -> _Box:
+    """`width` curvature sds around every mode, within the limits of each scale."""
+    lo, hi, sd, scales = {}, {}, {}, {}
     for k, p in enumerate(cont):
-        los = [m[0][k] - width * m[2][k] for m in modes]
-        his = [m[0][k] + width * m[2][k] for m in modes]
-        ulo, uhi = U_LIMITS[scales[p.name]]
-        lo_u[p.name], hi_u[p.name] = max(min(los), ulo), min(max(his), uhi)
-        sd_u[p.name] = min(m[2][k] for m in modes)
+        scales[p.name] = unconstrained_scale(p)
+        ulo, uhi = SCALE_TABLE[scales[p.name]].limits
+        lo[p.name] = max(min(m.u[k] - width * m.sd[k] for m in modes), ulo)
+        hi[p.name] = min(max(m.u[k] + width * m.sd[k] for m in modes), uhi)
+        sd[p.name] = min(m.sd[k] for m in modes)
+    none = {p.name: 0 for p in cont}
+    return _Box(lo, hi, sd, scales, none, dict(none))
 
-    def specs_from(n_each=None):
-        out = []
-        for p in params:
-            if p.discrete:
-                out.append(AxisSpec(p.name, p.lo, p.hi, None, None))
-                continue
-            sc_ = scales[p.name]
-            lo = float(_to_value(np.array(lo_u[p.name]), p, sc_))
-            hi = float(_to_value(np.array(hi_u[p.name]), p, sc_))
-            lo, hi = max(lo, p.lo), min(hi, p.hi)
-            if sc_ == "linear" and p.bounded:
-                lo, hi = max(lo, p.lo), min(hi, p.hi)
-            n = (n_each or {}).get(p.name) or (points or {}).get(p.name) or p.points or \
-                sized.get(p.name, npts)
-            out.append(AxisSpec(p.name, lo, hi, n, _fit_scale(p, lo, hi, sc_)))
-        return tuple(out)
 
-    sized: dict[str, int] = {}
-    def check_counts() -> dict[str, int]:
-        """Points of the checking pass: enough to resolve the narrowest mode (two
-        nodes per curvature sd, so that the total mass the edges are judged against
-        is right), at least 41, within `CHECK_POINTS` in all."""
-        want = {p.name: max(41, int(math.ceil((hi_u[p.name] - lo_u[p.name]) /
-                                              (sd_u[p.name] / 2 if sd_u[p.name] > 0 else 1))))
-                for p in cont}
-        total = math.prod(want.values()) * math.prod(len(p.values) for p in disc)
-        if total > CHECK_POINTS:
-            f = (CHECK_POINTS / total) ** (1 / max(len(cont), 1))
-            floor = 9 if 9 ** len(cont) <= 4 * CHECK_POINTS else 3
-            want = {k: max(floor, int(v * f)) for k, v in want.items()}
-        return {k: v + (1 - v % 2) for k, v in want.items()}
+def _box_specs(params: Sequence[Param], box: _Box, counts: dict[str, int]
+               ) -> tuple[AxisSpec, ...]:
+    """The axes of `box` in the parameters' units, with `counts` points each."""
+    out = []
+    for p in params:
+        if p.discrete:
+            out.append(AxisSpec(p.name, p.lo, p.hi, None, None))
+            continue
+        scale = box.scales[p.name]
+        lo = float(SCALE_TABLE[scale].to_value(np.array(box.lo[p.name]), p.lo, p.hi))
+        hi = float(SCALE_TABLE[scale].to_value(np.array(box.hi[p.name]), p.lo, p.hi))
+        lo, hi = max(lo, p.lo), min(hi, p.hi)
+        out.append(AxisSpec(p.name, lo, hi, counts[p.name], _fit_scale(p, lo, hi, scale)))
+    return tuple(out)
 
-    grow = {p.name: [0, 0] for p in cont}
-    edge = {}
+
+def _check_counts(box: _Box, cont: Sequence[Param], disc: Sequence[Param]) -> dict[str, int]:
+    """Points of the checking pass: enough to resolve the narrowest mode (two nodes
+    per curvature sd, so that the total mass the edges are judged against is right),
+    at least 41, within `CHECK_POINTS` in all; odd counts."""
+    want = {p.name: max(41, int(math.ceil(box.span(p.name) /
+                                          (box.sd[p.name] / 2 if box.sd[p.name] > 0 else 1))))
+            for p in cont}
+    total = math.prod(want.values()) * math.prod(len(p.values) for p in disc)
+    if total > CHECK_POINTS:
+        f = (CHECK_POINTS / total) ** (1 / max(len(cont), 1))
+        floor = 9 if 9 ** len(cont) <= 4 * CHECK_POINTS else 3
+        want = {k: max(floor, int(v * f)) for k, v in want.items()}
+    return {k: v + (1 - v % 2) for k, v in want.items()}
+
+
+@dataclass(frozen=True)
+class _Widening:
+    """Where the checking passes of `grid auto` left the box.
+
+    Attributes
+    ----------
+    box : _Box
+    edge : dict of str to (float, float)
+        Mass at the ends of each continuous axis on the last check.
+    widenings : int
+        Passes that widened some end.
+    improper : tuple of str
+        Axes whose ends kept widening (12 times or more).
+    converged : bool
+        Whether the passes stopped because no end needed widening.
+    """
+
+    box: _Box
+    edge: dict[str, tuple[float, float]]
+    widenings: int
+    improper: tuple[str, ...]
+    converged: bool
+
+
+def _widen(compiled: Compiled, box: _Box, per_end: float, max_widen: int) -> _Widening:
+    """Check passes on coarse grids of the box, widening it until no end holds more
+    than `per_end`, at most `max_widen` times."""
+    params = compiled.params
+    cont = [p for p in params if not p.discrete]
+    disc = [p for p in params if p.discrete]
+    edge: dict[str, tuple[float, float]] = {}
     widenings = 0
     improper: list[str] = []
-    converged = True
-    # the threshold is shared by every end of every continuous axis, so that the
-    # box as a whole leaves out less than `edge_mass`
-    per_end = edge_mass / (2 * max(len(cont), 1))
-    for it in range(max_widen + 1):
-        specs = specs_from(check_counts())
-        grid = build_grid(params, specs)
-        post = compute(compiled, grid, pairs=[], store=False)
-        edge = post.diagnostics.edge_mass
-        again = False
-        for p in cont:
-            a = grid.axis(p.name)
-            m_lo, m_hi = edge[p.name]
-            span = hi_u[p.name] - lo_u[p.name]
-            at_lo = a.scale == "linear" and a.lo <= p.lo
-            at_hi = a.scale == "linear" and a.hi >= p.hi
-            ulo, uhi = U_LIMITS[scales[p.name]]
-            if m_lo > per_end and not at_lo and lo_u[p.name] > ulo:
-                lo_u[p.name] = max(lo_u[p.name] - 0.5 * span, ulo)
-                grow[p.name][0] += 1
-                again = True
-            if m_hi > per_end and not at_hi and hi_u[p.name] < uhi:
-                hi_u[p.name] = min(hi_u[p.name] + 0.5 * span, uhi)
-                grow[p.name][1] += 1
-                again = True
-        if not again:
-            break
+    for _ in range(max_widen + 1):
+        grid = build_grid(params, _box_specs(params, box, _check_counts(box, cont, disc)))
+        edge = compute(compiled, grid, pairs=[], store=False).diagnostics.edge_mass
+        wider = _widened(grid, box, edge, per_end, cont)
+        if wider is None:
+            return _Widening(box, edge, widenings, tuple(improper), True)
+        box = wider
         widenings += 1
         for p in cont:
-            if max(grow[p.name]) >= 12 and p.name not in improper:
+            if max(box.lo_moves[p.name], box.hi_moves[p.name]) >= 12 and p.name not in improper:
                 improper.append(p.name)
         if improper and widenings >= 14:
-            converged = False
             break
-    else:
-        converged = False
-    # points: enough nodes across the narrowest mode, within the budget
+    return _Widening(box, edge, widenings, tuple(improper), False)
+
+
+def _widened(grid: Grid, box: _Box, edge: dict[str, tuple[float, float]], per_end: float,
+             cont: Sequence[Param]) -> _Box | None:
+    """`box` with every end that holds more than `per_end` moved out by half the
+    span (not past a domain edge or the scale's limit); None if no end moves."""
+    lo, hi = dict(box.lo), dict(box.hi)
+    lo_moves, hi_moves = dict(box.lo_moves), dict(box.hi_moves)
+    moved = False
     for p in cont:
-        span = hi_u[p.name] - lo_u[p.name]
-        want = span / (sd_u[p.name] / PER_SD) if sd_u[p.name] > 0 else npts
-        sized[p.name] = npts if p.name in improper else max(npts, int(math.ceil(want)))
+        a = grid.axis(p.name)
+        m_lo, m_hi = edge[p.name]
+        span = box.span(p.name)
+        at_lo = a.scale == "linear" and a.lo <= p.lo
+        at_hi = a.scale == "linear" and a.hi >= p.hi
+        ulo, uhi = box.limits(p.name)
+        if m_lo > per_end and not at_lo and lo[p.name] > ulo:
+            lo[p.name] = max(lo[p.name] - 0.5 * span, ulo)
+            lo_moves[p.name] += 1
+            moved = True
+        if m_hi > per_end and not at_hi and hi[p.name] < uhi:
+            hi[p.name] = min(hi[p.name] + 0.5 * span, uhi)
+            hi_moves[p.name] += 1
+            moved = True
+    return replace(box, lo=lo, hi=hi, lo_moves=lo_moves, hi_moves=hi_moves) if moved else None
+
+
+def _sized_counts(compiled: Compiled, wid: _Widening, points: dict[str, int] | None
+                  ) -> dict[str, int]:
+    """Points per continuous axis: the user's, else enough nodes across the narrowest
+    mode (`PER_SD` per curvature sd), within `AUTO_BUDGET`, with two nested levels."""
+    cont = [p for p in compiled.params if not p.discrete]
+    disc = [p for p in compiled.params if p.discrete]
+    npts = default_points(max(len(cont), 1))
+    box = wid.box
+    sized: dict[str, int] = {}
+    for p in cont:
+        want = box.span(p.name) / (box.sd[p.name] / PER_SD) if box.sd[p.name] > 0 else npts
+        sized[p.name] = npts if p.name in wid.improper else max(npts, int(math.ceil(want)))
     total = math.prod(sized.values()) * math.prod(len(p.values) for p in disc)
     if total > AUTO_BUDGET:
         shrink = (AUTO_BUDGET / total) ** (1 / max(len(cont), 1))
         for k in sized:
             sized[k] = max(5, int(sized[k] * shrink))
-    for k in sized:
-        sized[k] = _nested_count(sized[k])
-    specs = specs_from()
-    limited = []
+    return {p.name: (points or {}).get(p.name) or p.points or _nested_count(sized[p.name])
+            for p in cont}
+
+
+@dataclass(frozen=True)
+class _Limits:
+    """Ends held back by the precision of their scale: notes for the user, and axes
+    whose mass runs on to the log scale's top (an improper posterior)."""
+
+    notes: tuple[str, ...]
+    improper: tuple[str, ...]
+
+
+def _limits(cont: Sequence[Param], wid: _Widening, per_end: float) -> _Limits:
+    notes: list[str] = []
+    improper = list(wid.improper)
     for p in cont:
-        lo_lim, hi_lim = U_LIMITS[scales[p.name]]
-        m_lo, m_hi = edge.get(p.name, (0.0, 0.0))
-        if m_hi > per_end and hi_u[p.name] >= hi_lim and scales[p.name] == "log":
+        lo_lim, hi_lim = wid.box.limits(p.name)
+        m_lo, m_hi = wid.edge.get(p.name, (0.0, 0.0))
+        if m_hi > per_end and wid.box.hi[p.name] >= hi_lim and wid.box.scales[p.name] == "log":
             # the log scale's top is a value near 1e304, not a domain edge
             if p.name not in improper:
                 improper.append(p.name)
             continue
-        if m_hi > per_end and hi_u[p.name] >= hi_lim:
-            limited.append(f"the mass beyond the upper end of `{p.name}` stays at {m_hi:.2g}: "
-                           f"values closer to {p.hi:g} are not distinct from it in double precision")
-        if m_lo > per_end and lo_u[p.name] <= lo_lim:
-            limited.append(f"the mass beyond the lower end of `{p.name}` stays at {m_lo:.2g}: "
-                           f"values closer to {p.lo:g} are not distinct from it in double precision")
-    mode_vals = []
-    target = _Target(compiled, fixed)
-    if improper:
-        modes = modes[:1]   # a flat posterior has no separated modes to report
-    for x, fx, sd in modes:
-        th = target.theta(x[None, :])
-        mode_vals.append({p.name: float(t[0]) for p, t in zip(params, th)})
-    msg = "; ".join(limited)
-    if limited:
-        converged = True
+        if m_hi > per_end and wid.box.hi[p.name] >= hi_lim:
+            notes.append(f"the mass beyond the upper end of `{p.name}` stays at {m_hi:.2g}: "
+                         f"values closer to {p.hi:g} are not distinct from it in double precision")
+        if m_lo > per_end and wid.box.lo[p.name] <= lo_lim:
+            notes.append(f"the mass beyond the lower end of `{p.name}` stays at {m_lo:.2g}: "
+                         f"values closer to {p.lo:g} are not distinct from it in double precision")
+    return _Limits(tuple(notes), tuple(improper))
+
+
+def _verdict(compiled: Compiled, fixed: dict[str, float], modes: Sequence[LocalMode],
+             wid: _Widening, specs: tuple[AxisSpec, ...], per_end: float) -> AutoGrid:
+    """The `AutoGrid`: its modes in the parameters' units, and what limited it."""
+    cont = [p for p in compiled.params if not p.discrete]
+    lim = _limits(cont, wid, per_end)
+    improper = lim.improper
+    # a flat posterior has no separated modes to report
+    mode_vals = _mode_values(compiled, fixed, modes[:1] if improper else modes)
+    converged = wid.converged or bool(lim.notes)
     if improper:
         msg = ("mass keeps piling at the edge of " + ", ".join(f"`{n}`" for n in improper) +
                " as the bounds widen: the posterior looks improper")
     elif not converged:
         msg = "the edge mass did not fall below the threshold within the widening limit"
-    return AutoGrid(specs, tuple(mode_vals), edge, converged and not improper, tuple(improper),
-                    msg, widenings)
+    else:
+        msg = "; ".join(lim.notes)
+    return AutoGrid(specs, tuple(mode_vals), wid.edge, converged and not improper, improper,
+                    msg, wid.widenings)
+
+
+def _mode_values(compiled: Compiled, fixed: dict[str, float], modes: Sequence[LocalMode]
+                 ) -> list[dict[str, float]]:
+    target = _Target(compiled, fixed)
+    out = []
+    for m in modes:
+        th = target.theta(m.u[None, :])
+        out.append({p.name: float(t[0]) for p, t in zip(compiled.params, th)})
+    return out
 
 
 def _nested_count(n: int) -> int:
@@ -633,19 +727,8 @@ def refined_grid(grid: Grid, axis: str | None = None) -> Grid:
             n = 2 * a.n
         else:
             n = 2 * a.n - 1
-        axes.append(make_axis(_param_like(a), a.lo, a.hi, n, rule=a.rule, scale=a.scale))
+        axes.append(make_axis(a.param(), a.lo, a.hi, n, rule=a.rule, scale=a.scale))
     return Grid(tuple(axes))
-
-
-def _param_like(a: Axis) -> Param:
-    """A parameter with the axis's domain (enough to rebuild the axis)."""
-    if math.isfinite(a.dom_lo) and math.isfinite(a.dom_hi):
-        kind = "interval"
-    elif math.isfinite(a.dom_lo):
-        kind = "positive"
-    else:
-        kind = "real"
-    return Param(a.name, kind, a.dom_lo, a.dom_hi)
 
 
 def refine(compiled: Compiled, post: Posterior, *, axis: str | None = None,

@@ -184,7 +184,15 @@ def _tree(cond: sp.Basic, relation):
     return None
 
 
-def _parse(cond: sp.Basic, post: Posterior):
+@dataclass(frozen=True)
+class _Parsed:
+    """A condition as its and / or / not skeleton over numbered relations."""
+
+    tree: tuple
+    rels: list[_Relation]
+
+
+def _parse(cond: sp.Basic, post: Posterior) -> _Parsed | None:
     params = post.compiled.params
     axes = post.grid.axes
     rels: list[_Relation] = []
@@ -199,7 +207,7 @@ def _parse(cond: sp.Basic, post: Posterior):
         return ("rel", len(rels) - 1)
 
     tree = boolean_tree(cond, relation)
-    return None if tree is None else (tree, rels)
+    return None if tree is None else _Parsed(tree, rels)
 
 
 def _has_none(tree) -> bool:
@@ -231,7 +239,16 @@ def _qualifies(a: Axis) -> bool:
     return (not a.discrete) and a.rule == "trapezoid" and a.n >= 8
 
 
-def _plan(rels: list[_Relation], post: Posterior):
+@dataclass(frozen=True)
+class _LinePlan:
+    """The line axis, and the relations that are separable (on one other axis each:
+    they become interval weights there); the rest are read along the lines."""
+
+    axis: int
+    separable: list[int]
+
+
+def _plan(rels: list[_Relation], post: Posterior) -> _LinePlan | None:
     """Choose the line axis; split relations into line, separable and exact ones."""
     axes = post.grid.axes
     multi = [r for r in rels if len(r.cont) > 1 or (r.cont and r.disc)]
@@ -253,7 +270,7 @@ def _plan(rels: list[_Relation], post: Posterior):
             continue
         if len(sep) > MAX_SEPARABLE:
             continue
-        return k, sep
+        return _LinePlan(k, sep)
     return None
 
 
@@ -337,14 +354,12 @@ def region_probability(post: Posterior, cond: sp.Basic) -> list[float] | None:
     parsed = _parse(cond, post)
     if parsed is None:
         return None
-    tree, rels = parsed
-    plan = _plan(rels, post)
+    plan = _plan(parsed.rels, post)
     if plan is None:
         return None
-    k, sep = plan
     out = []
     for lev in range(post.levels + 1):
-        v = _level_probability(post, tree, rels, k, sep, lev)
+        v = _level_probability(post, parsed.tree, parsed.rels, plan.axis, plan.separable, lev)
         if v is None:
             if lev == 0:
                 return None
@@ -360,6 +375,83 @@ def _level_selection(a: Axis, lev: int) -> np.ndarray:
 
 
 def _level_probability(post: Posterior, tree, rels, k: int, sep: list[int], lev: int):
+    """P(tree) on level `lev` of the grid, read as lines along axis `k` (the
+    relations in `sep` become interval weights on their own axes); None where the
+    level is too coarse for the method."""
+    lines = _level_lines(post, k, lev)
+    if lines is None:
+        return None
+    cross = _cross_weights(post, lines, rels, sep, lev)
+    if cross is None:
+        return None
+    total = float(np.dot(cross.full_factor, lines.line.total(lines.C)))
+    if not total > 0:
+        return None
+    along = [i for i in range(len(rels)) if i not in sep]
+    segs = _segments(lines, rels, along)
+    return min(max(_numerator(tree, segs, cross, lines, sep) / total, 0.0), 1.0)
+
+
+@dataclass(frozen=True)
+class _Lines:
+    """One level of the grid read as lines along the line axis `k`.
+
+    Attributes
+    ----------
+    k : int
+    d : int
+        The number of axes.
+    sel : list of ndarray
+        Per axis, the nodes of this level.
+    others : list of int
+        The other axes, in order; the lines run over their nodes.
+    values : list of ndarray
+        The other axes' values at this level.
+    index : tuple of ndarray
+        Per other axis, the node of each line, shape (L,).
+    f : ndarray, shape (L, n_k)
+        The density (Jacobians included) on each line, scaled to its top.
+    C : ndarray, shape (L, n_k)
+        Its trapezoid cumulative integrals along each line.
+    line : Line1D
+        The rule along the line axis.
+    axis : Axis
+        The line axis.
+    """
+
+    k: int
+    d: int
+    sel: list[np.ndarray]
+    others: list[int]
+    values: list[np.ndarray]
+    index: tuple
+    f: np.ndarray
+    C: np.ndarray
+    line: Line1D
+    axis: Axis
+
+    @property
+    def count(self) -> int:
+        return self.f.shape[0]
+
+    @property
+    def n_k(self) -> int:
+        return self.f.shape[1]
+
+    @property
+    def uk(self) -> np.ndarray:
+        return self.line.u
+
+    def theta(self, rows: np.ndarray, kvals: np.ndarray) -> list:
+        """Parameter values at points of lines `rows`, `kvals` along the line axis."""
+        th = [None] * self.d
+        for q, j in enumerate(self.others):
+            th[j] = self.values[q][self.index[q][rows]]
+        th[self.k] = kvals
+        return th
+
+
+def _level_lines(post: Posterior, k: int, lev: int) -> _Lines | None:
     grid = post.grid
     axes = grid.axes
     sel = [_level_selection(a, lev) for a in axes]
@@ -382,24 +474,54 @@ def _level_probability(post: Posterior, tree, rels, k: int, sep: list[int], lev:
     f_all = np.moveaxis(f_all, k, -1)
     others = [j for j in range(d) if j != k]
     oshape = [len(sel[j]) for j in others]
-    n_k = len(sel[k])
-    f_lines = f_all.reshape(-1, n_k)
-    L = f_lines.shape[0]
-    uk = axes[k].u[sel[k]]
-    line = Line1D(uk)
-    ak = axes[k]
+    f_lines = f_all.reshape(-1, len(sel[k]))
+    index = np.unravel_index(np.arange(f_lines.shape[0]), oshape) if others else ()
+    line = Line1D(axes[k].u[sel[k]])
+    return _Lines(k, d, sel, others, [axes[j].values[sel[j]] for j in others], index, f_lines,
+                  line.trapezoid_cumulative(f_lines), line, axes[k])
 
-    def vals_k(u):
-        return ak.to_value(u)
 
-    # other axes: rule weights (level) or interval weights for separable relations
-    other_w_full = []
-    per_axis_rel: dict[int, list[int]] = {}
+@dataclass(frozen=True)
+class _CrossWeights:
+    """Weights across the lines: per other axis, the level's rule weights, or for an
+    axis with separable relations, interval weights for every truth assignment.
+
+    Attributes
+    ----------
+    full : list of ndarray
+        Per other axis, the weights over its whole range.
+    rels_of : dict of int to list of int
+        The separable relations on each axis.
+    by_truth : dict of int to dict of tuple to ndarray
+        Per axis with separable relations, the weights of the set where each of
+        them has the truth value of the key.
+    full_factor : ndarray, shape (L,)
+        The weight of each line, from `full`.
+    """
+
+    full: list[np.ndarray]
+    rels_of: dict[int, list[int]]
+    by_truth: dict[int, dict[tuple, np.ndarray]]
+    full_factor: np.ndarray
+
+    @staticmethod
+    def factor(ws: list[np.ndarray]) -> np.ndarray:
+        """The weight of each line from per-axis weights (outer product, flat)."""
+        fac = np.ones(1)
+        for w in ws:
+            fac = np.multiply.outer(fac, w)
+        return fac.reshape(-1)
+
+
+def _cross_weights(post: Posterior, lines: _Lines, rels, sep: list[int], lev: int
+                   ) -> _CrossWeights | None:
+    axes = post.grid.axes
+    sel = lines.sel
+    rels_of: dict[int, list[int]] = {}
     for i in sep:
-        j = next(iter(rels[i].cont))
-        per_axis_rel.setdefault(j, []).append(i)
-    axis_w_sigma: dict[int, dict[tuple, np.ndarray]] = {}
-    for j in others:
+        rels_of.setdefault(next(iter(rels[i].cont)), []).append(i)
+    full, by_truth = [], {}
+    for j in lines.others:
         a = axes[j]
         if a.discrete:
             w = np.ones(len(sel[j]))
@@ -407,65 +529,67 @@ def _level_probability(post: Posterior, tree, rels, k: int, sep: list[int], lev:
             w = a.weights[sel[j]]
         else:
             w = np.exp(a.coarse[lev - 1][sel[j]] - a.logjac[sel[j]])
-        if j in per_axis_rel:
+        if j in rels_of:
             if len(sel[j]) > 4000:
                 return None
             lj_ = Line1D(a.u[sel[j]])
             w = lj_.weights_F(a.u[sel[j]][-1])  # the same cumulative rule, full range
-            idx_rels = [rels[i] for i in per_axis_rel[j]]
+            idx_rels = [rels[i] for i in rels_of[j]]
 
             def theta_j(v, j=j):
-                th = [np.full(np.shape(v), float(axes[q].values[sel[q][0]])) for q in range(d)]
+                th = [np.full(np.shape(v), float(axes[q].values[sel[q][0]]))
+                      for q in range(lines.d)]
                 th[j] = np.asarray(v, float)
                 return th
 
-            axis_w_sigma[j] = {}
+            by_truth[j] = {}
             for sig in itertools.product((True, False), repeat=len(idx_rels)):
-                axis_w_sigma[j][sig] = _axis_interval_weights(
+                by_truth[j][sig] = _axis_interval_weights(
                     a.u[sel[j]], a.to_value, idx_rels, sig, theta_j, lj_)
-        other_w_full.append(w)
-    # line-factor of each line from per-axis weights
-    def line_factor(ws: list[np.ndarray]) -> np.ndarray:
-        fac = np.ones(1)
-        for w in ws:
-            fac = np.multiply.outer(fac, w)
-        return fac.reshape(-1)
+        full.append(w)
+    return _CrossWeights(full, rels_of, by_truth, _CrossWeights.factor(full))
 
-    line_idx = np.unravel_index(np.arange(L), oshape) if others else ()
-    full_fac = line_factor(other_w_full)
-    # the relations read along the lines (all but the separable ones)
-    along = [i for i in range(len(rels)) if i not in sep]
-    C = line.trapezoid_cumulative(f_lines)
-    total = float(np.dot(full_fac, line.total(C)))
-    if not total > 0:
-        return None
-    # values of the other coordinates of each line
-    other_vals = [axes[j].values[sel[j]] for j in others]
 
-    def theta_for(rows: np.ndarray, kvals: np.ndarray):
-        th = [None] * d
-        for q, j in enumerate(others):
-            th[j] = other_vals[q][line_idx[q][rows]]
-        th[k] = kvals
-        return th
+@dataclass(frozen=True)
+class _Segments:
+    """The pieces of every line between its breakpoints (its ends and the roots of
+    the relations read along it).
 
-    # breakpoints: roots of every along-line relation on every line
+    Attributes
+    ----------
+    rows : ndarray of int
+        The line of each segment.
+    integral : ndarray
+        The density's integral over each segment.
+    truth : dict of int to ndarray of bool
+        Each along-line relation's truth value on each segment.
+    """
+
+    rows: np.ndarray
+    integral: np.ndarray
+    truth: dict[int, np.ndarray]
+
+
+def _segments(lines: _Lines, rels, along: list[int]) -> _Segments:
+    L, n_k, uk = lines.count, lines.n_k, lines.uk
+    vals_k = lines.axis.to_value
     rows_b, cells_b, x_b = [], [], []
     for i in along:
         r = rels[i]
         if not r.cont:
             continue  # exact on the line: no roots along it
-        for start in range(0, L, max(1, CHUNK_POINTS // n_k)):
-            stop = min(L, start + max(1, CHUNK_POINTS // n_k))
+        step = max(1, CHUNK_POINTS // n_k)
+        for start in range(0, L, step):
+            stop = min(L, start + step)
             rows = np.repeat(np.arange(start, stop), n_k)
-            kv = np.tile(ak.values[sel[k]], stop - start)
-            s = r.s(theta_for(rows, kv)).reshape(stop - start, n_k)
+            kv = np.tile(lines.axis.values[lines.sel[lines.k]], stop - start)
+            s = r.s(lines.theta(rows, kv)).reshape(stop - start, n_k)
             t = _truth(r.op, s)
             rr, cc = np.nonzero(t[:, :-1] != t[:, 1:])
             if rr.size == 0:
                 continue
             rows_abs = rr + start
-            x = _roots(r, lambda kvals, m, rows_abs=rows_abs: theta_for(rows_abs[m], kvals),
+            x = _roots(r, lambda kvals, m, rows_abs=rows_abs: lines.theta(rows_abs[m], kvals),
                        uk[cc], uk[cc + 1], s[rr, cc], s[rr, cc + 1], vals_k)
             rows_b.append(rows_abs)
             cells_b.append(cc)
@@ -476,36 +600,40 @@ def _level_probability(post: Posterior, tree, rels, k: int, sep: list[int], lev:
     x_all = np.concatenate(x_b + [np.full(L, uk[0]), np.full(L, uk[-1])])
     order = np.lexsort((x_all, rows_all))
     rows_all, cells_all, x_all = rows_all[order], cells_all[order], x_all[order]
-    Fv = line.F(f_lines, C, rows_all, cells_all, x_all)
+    Fv = lines.line.F(lines.f, lines.C, rows_all, cells_all, x_all)
     same = rows_all[1:] == rows_all[:-1]
     seg_rows = rows_all[:-1][same]
-    seg_int = (Fv[1:] - Fv[:-1])[same]
     seg_mid = (0.5 * (x_all[1:] + x_all[:-1]))[same]
-    th_mid = theta_for(seg_rows, vals_k(seg_mid))
-    truth_along = {i: _truth(rels[i].op, rels[i].s(th_mid)) for i in along}
-    num = 0.0
+    th_mid = lines.theta(seg_rows, vals_k(seg_mid))
+    truth = {i: _truth(rels[i].op, rels[i].s(th_mid)) for i in along}
+    return _Segments(seg_rows, (Fv[1:] - Fv[:-1])[same], truth)
+
+
+def _numerator(tree, segs: _Segments, cross: _CrossWeights, lines: _Lines, sep: list[int]
+               ) -> float:
+    """The integral of the density over the segments where `tree` holds, each line
+    weighted across; with separable relations, summed over their truth values."""
     if not sep:
-        ok = np.asarray(_judge(tree, truth_along), bool) & np.ones(len(seg_rows), bool)
-        num = float(np.dot(full_fac[seg_rows], np.where(ok, seg_int, 0.0)))
-    else:
-        for sig in itertools.product((True, False), repeat=len(sep)):
-            values = dict(truth_along)
-            assign = dict(zip(sep, sig))
-            for i in sep:
-                values[i] = np.full(len(seg_rows), assign[i])
-            ok = np.asarray(_judge(tree, values), bool)
-            if not ok.any():
-                continue
-            ws = []
-            for q, j in enumerate(others):
-                if j in axis_w_sigma:
-                    key = tuple(assign[i] for i in per_axis_rel[j])
-                    ws.append(axis_w_sigma[j][key])
-                else:
-                    ws.append(other_w_full[q])
-            fac = line_factor(ws)
-            num += float(np.dot(fac[seg_rows], np.where(ok, seg_int, 0.0)))
-    return min(max(num / total, 0.0), 1.0)
+        ok = np.asarray(_judge(tree, segs.truth), bool) & np.ones(len(segs.rows), bool)
+        return float(np.dot(cross.full_factor[segs.rows], np.where(ok, segs.integral, 0.0)))
+    num = 0.0
+    for sig in itertools.product((True, False), repeat=len(sep)):
+        values = dict(segs.truth)
+        assign = dict(zip(sep, sig))
+        for i in sep:
+            values[i] = np.full(len(segs.rows), assign[i])
+        ok = np.asarray(_judge(tree, values), bool)
+        if not ok.any():
+            continue
+        ws = []
+        for q, j in enumerate(lines.others):
+            if j in cross.by_truth:
+                ws.append(cross.by_truth[j][tuple(assign[i] for i in cross.rels_of[j])])
+            else:
+                ws.append(cross.full[q])
+        fac = _CrossWeights.factor(ws)
+        num += float(np.dot(fac[segs.rows], np.where(ok, segs.integral, 0.0)))
+    return num
 
 
 class _Shifted:
@@ -535,10 +663,9 @@ def region_cdf(post: Posterior, expr: sp.Expr):
     plan = _plan([probe], post)
     if plan is None:
         return None
-    k, sep = plan
 
     def cdf(x: float, lev: int) -> float | None:
         rel = _Relation(_Shifted(base, x), "le", cont, disc)
-        return _level_probability(post, ("rel", 0), [rel], k, [], lev)
+        return _level_probability(post, ("rel", 0), [rel], plan.axis, [], lev)
 
     return cdf

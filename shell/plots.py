@@ -32,6 +32,7 @@ import math
 import operator
 import threading
 from collections.abc import Iterator, Mapping
+from dataclasses import dataclass
 
 import numpy as np
 import plotext
@@ -104,6 +105,34 @@ def marginal(values, density, *, name, width=80, height=20, discrete=False,
     """
     width, height = _check_size(width, height)
     name = _check_label(name, "name")
+    x, y = _marginal_points(values, density, discrete)
+    ends = _interval(interval)
+    view = _marginal_view(x, y, discrete, width)
+
+    title = None
+    if ends is not None:
+        mark = _BOLD if discrete else _SHADE
+        title = _first_fit([f"{mark} interval {_short(ends[0])} to {_short(ends[1])}",
+                            f"{mark} {_short(ends[0])} to {_short(ends[1])}"], width)
+    canvas_rows = height - _FRAME_ROWS - (title is not None)
+
+    with _figure(width, height, color) as fig:
+        if view.dense:
+            _draw_bars(fig, view, ends)
+        elif discrete:
+            _draw_sticks(fig, view, ends, width)
+        else:
+            _draw_curve(fig, view, ends, width, canvas_rows)
+        _set_axes(fig, width, canvas_rows, view.xspan, view.yspan, xint=view.integer_x)
+        ylabel, xlabel = _bar_labels(width, "probability" if discrete else "density", name)
+        _set_labels(fig, ylabel, xlabel)
+        if title is not None:
+            fig.title(_fit(title, width))
+        return _render(fig, color)
+
+
+def _marginal_points(values, density, discrete: bool) -> tuple[np.ndarray, np.ndarray]:
+    """The marginal's values in increasing order and its non-negative densities."""
     x = _vector(values, "values")
     y = _vector(density, "density")
     _same_length(x, "values", y, "density")
@@ -111,8 +140,37 @@ def marginal(values, density, *, name, width=80, height=20, discrete=False,
     y = _non_negative(y, "density")
     if not discrete and x.size < 2:
         raise ValueError("`values` needs at least 2 points to draw a continuous marginal")
-    ends = _interval(interval)
+    return x, y
 
+
+@dataclass(frozen=True)
+class _MarginalView:
+    """A marginal as plotext is handed it: positions and heights on [0, 1].
+
+    Attributes
+    ----------
+    x : ndarray
+        The values drawn, in data units (the bars' centres when `dense`).
+    u, v : ndarray
+        `x` and the heights mapped onto [0, 1].
+    xspan, yspan : _Span
+        The axes' ranges in data units.
+    dense : bool
+        More discrete values than columns: drawn as joined bars.
+    integer_x : bool
+        Discrete whole-number values: x ticks on whole numbers.
+    """
+
+    x: np.ndarray
+    u: np.ndarray
+    v: np.ndarray
+    xspan: "_Span"
+    yspan: "_Span"
+    dense: bool
+    integer_x: bool
+
+
+def _marginal_view(x: np.ndarray, y: np.ndarray, discrete: bool, width: int) -> _MarginalView:
     if discrete:
         gaps = np.diff(x)
         half = 0.5 * (float(gaps.min()) if gaps.size else 1.0)
@@ -137,50 +195,52 @@ def marginal(values, density, *, name, width=80, height=20, discrete=False,
         u, v = 0.5 * (slices[:-1] + slices[1:]), mean / top
         x = xspan.lo + u * (xspan.hi - xspan.lo)
         ymax *= top
-    yspan = _span(0.0, ymax, "density")
+    return _MarginalView(x, u, v, xspan, _span(0.0, ymax, "density"), dense, integer_x)
 
-    title = None
+
+def _inside(view: _MarginalView, ends, default: bool) -> np.ndarray:
+    """Which drawn values lie in the interval (all `default` without one)."""
+    if ends is None:
+        return np.full(view.x.size, default)
+    return (view.x >= ends[0]) & (view.x <= ends[1])
+
+
+def _draw_bars(fig, view: _MarginalView, ends) -> None:
+    """Solid bars; outside an interval they turn to light shade."""
+    inside = _inside(view, ends, True)
+    for part, marker in ((~inside, _LIGHT), (inside, None)):
+        part &= view.v > 0
+        if part.any():
+            bars = fig.signal(view.u[part].tolist(), view.v[part].tolist(), marker=marker)
+            fig.draw(bars.fillx().density("full"))
+
+
+def _draw_sticks(fig, view: _MarginalView, ends, width: int) -> None:
+    """Sticks of a pmf; inside an interval they are bold."""
+    u, v = view.u, view.v
+    inside = _inside(view, ends, False)
+    uo, vo = _thin(u[~inside], v[~inside], 4 * width)
+    if uo.size:
+        fig.draw(fig.signal(uo.tolist(), vo.tolist()).fillx().density("full"))
+    if inside.any():
+        ui, vi = _thin(u[inside], v[inside], 4 * width)
+        bold = fig.signal(ui.tolist(), vi.tolist(), marker=_BOLD)
+        fig.draw(bold.fillx().density("full"))
+
+
+def _draw_curve(fig, view: _MarginalView, ends, width: int, canvas_rows: int) -> None:
+    """A density curve, the area under it shaded with dots inside an interval."""
+    x, u, v, xspan = view.x, view.u, view.v, view.xspan
     if ends is not None:
-        mark = _BOLD if discrete else _SHADE
-        title = _first_fit([f"{mark} interval {_short(ends[0])} to {_short(ends[1])}",
-                            f"{mark} {_short(ends[0])} to {_short(ends[1])}"], width)
-    canvas_rows = height - _FRAME_ROWS - (title is not None)
-
-    with _figure(width, height, color) as fig:
-        if dense:
-            # Solid bars; outside an interval they turn to light shade.
-            inside = np.ones(x.size, bool) if ends is None else (x >= ends[0]) & (x <= ends[1])
-            for part, marker in ((~inside, _LIGHT), (inside, None)):
-                part &= v > 0
-                if part.any():
-                    bars = fig.signal(u[part].tolist(), v[part].tolist(), marker=marker)
-                    fig.draw(bars.fillx().density("full"))
-        elif discrete:
-            inside = np.zeros(x.size, bool) if ends is None else (x >= ends[0]) & (x <= ends[1])
-            uo, vo = _thin(u[~inside], v[~inside], 4 * width)
-            if uo.size:
-                fig.draw(fig.signal(uo.tolist(), vo.tolist()).fillx().density("full"))
-            if inside.any():
-                ui, vi = _thin(u[inside], v[inside], 4 * width)
-                bold = fig.signal(ui.tolist(), vi.tolist(), marker=_BOLD)
-                fig.draw(bold.fillx().density("full"))
-        else:
-            if ends is not None:
-                lo, hi = float(xspan(max(ends[0], x[0]))), float(xspan(min(ends[1], x[-1])))
-                if lo <= hi:
-                    us = np.linspace(lo, hi, 4 * width)
-                    # Lowered by half a row so the dots stay under the curve's own cells.
-                    vs = np.clip(np.interp(us, u, v) - 0.5 / canvas_rows, 0.0, None)
-                    shade = fig.signal(us.tolist(), vs.tolist(), marker=_SHADE)
-                    fig.draw(shade.fillx().density("full"))
-            ut, vt = _thin(u, v, 4 * width)
-            fig.draw(fig.signal(ut.tolist(), vt.tolist()).lines(True).density("full"))
-        _set_axes(fig, width, canvas_rows, xspan, yspan, xint=integer_x)
-        ylabel, xlabel = _bar_labels(width, "probability" if discrete else "density", name)
-        _set_labels(fig, ylabel, xlabel)
-        if title is not None:
-            fig.title(_fit(title, width))
-        return _render(fig, color)
+        lo, hi = float(xspan(max(ends[0], x[0]))), float(xspan(min(ends[1], x[-1])))
+        if lo <= hi:
+            us = np.linspace(lo, hi, 4 * width)
+            # Lowered by half a row so the dots stay under the curve's own cells.
+            vs = np.clip(np.interp(us, u, v) - 0.5 / canvas_rows, 0.0, None)
+            shade = fig.signal(us.tolist(), vs.tolist(), marker=_SHADE)
+            fig.draw(shade.fillx().density("full"))
+    ut, vt = _thin(u, v, 4 * width)
+    fig.draw(fig.signal(ut.tolist(), vt.tolist()).lines(True).density("full"))
 
 
 def joint(xvalues, yvalues, mass, *, xname, yname, width=80, height=24, color=False) -> str:
@@ -213,22 +273,9 @@ def joint(xvalues, yvalues, mass, *, xname, yname, width=80, height=24, color=Fa
     width, height = _check_size(width, height)
     xname = _check_label(xname, "xname")
     yname = _check_label(yname, "yname")
-    xs = _vector(xvalues, "xvalues")
-    ys = _vector(yvalues, "yvalues")
-    m = _matrix(mass, "mass", (xs.size, ys.size))
-    for axis, what in ((xs, "xvalues"), (ys, "yvalues")):
-        if axis.size < 2:
-            raise ValueError(f"`{what}` needs at least 2 nodes to draw a joint marginal")
-    xorder = _order(xs, "xvalues")
-    yorder = _order(ys, "yvalues")
-    xs, ys = xs[xorder], ys[yorder]
-    m = _non_negative(m[np.ix_(xorder, yorder)], "mass")
-
-    xspan = _span(*_outer_edges(xs), "xvalues")
-    yspan = _span(*_outer_edges(ys), "yvalues")
-    xedges = _node_cells(xspan(xs))           # in [0, 1] from here on
-    yedges = _node_cells(yspan(ys))
-    m = m / m.max()
+    nodes = _joint_nodes(xvalues, yvalues, mass)
+    xspan = _span(*_outer_edges(nodes.x), "xvalues")
+    yspan = _span(*_outer_edges(nodes.y), "yvalues")
     title = _first_fit([f"density  low {RAMP[1:]} high", f"low {RAMP[1:]} high", RAMP[1:]], width)
     canvas_rows = height - _FRAME_ROWS - 1
 
@@ -241,20 +288,49 @@ def joint(xvalues, yvalues, mass, *, xname, yname, width=80, height=24, color=Fa
         ylabel, xlabel = _bar_labels(width, yname, xname)
         _set_labels(fig, ylabel, xlabel)
         fig.title(_fit(title, width))
-
-        # First pass: the frame alone, to learn the canvas size in cells.
-        ncols, nrows = _canvas_size(fig.build().string(colorless=True))
-        cells = _rebin(yedges, _rebin(xedges, m, np.linspace(0.0, 1.0, ncols + 1), axis=0),
-                       np.linspace(0.0, 1.0, nrows + 1), axis=1)
-        levels = _levels(cells)
-        for level in range(1, len(RAMP)):
-            cols, rows = np.nonzero(levels == level)
-            if cols.size == 0:
-                continue
-            marker = plotext.marker(RAMP[level], pixel=_RAMP_COLOURS[level - 1] if color else None)
-            fig.draw(fig.signal(((cols + 0.5) / ncols).tolist(), ((rows + 0.5) / nrows).tolist(),
-                                marker=marker))
+        _draw_ramp(fig, nodes, xspan, yspan, color)
         return _render(fig, color)
+
+
+@dataclass(frozen=True)
+class _JointNodes:
+    """A joint marginal's nodes in increasing order on both axes, and its mass scaled
+    to a top of 1, shape (len(x), len(y))."""
+
+    x: np.ndarray
+    y: np.ndarray
+    mass: np.ndarray
+
+
+def _joint_nodes(xvalues, yvalues, mass) -> _JointNodes:
+    xs = _vector(xvalues, "xvalues")
+    ys = _vector(yvalues, "yvalues")
+    m = _matrix(mass, "mass", (xs.size, ys.size))
+    for axis, what in ((xs, "xvalues"), (ys, "yvalues")):
+        if axis.size < 2:
+            raise ValueError(f"`{what}` needs at least 2 nodes to draw a joint marginal")
+    xorder = _order(xs, "xvalues")
+    yorder = _order(ys, "yvalues")
+    m = _non_negative(m[np.ix_(xorder, yorder)], "mass")
+    return _JointNodes(xs[xorder], ys[yorder], m / m.max())
+
+
+def _draw_ramp(fig, nodes: _JointNodes, xspan: _Span, yspan: _Span, color: bool) -> None:
+    """The node masses re-binned onto the canvas cells, each cell one ramp character."""
+    xedges = _node_cells(xspan(nodes.x))           # in [0, 1] from here on
+    yedges = _node_cells(yspan(nodes.y))
+    # First pass: the frame alone, to learn the canvas size in cells.
+    ncols, nrows = _canvas_size(fig.build().string(colorless=True))
+    cells = _rebin(yedges, _rebin(xedges, nodes.mass, np.linspace(0.0, 1.0, ncols + 1), axis=0),
+                   np.linspace(0.0, 1.0, nrows + 1), axis=1)
+    levels = _levels(cells)
+    for level in range(1, len(RAMP)):
+        cols, rows = np.nonzero(levels == level)
+        if cols.size == 0:
+            continue
+        marker = plotext.marker(RAMP[level], pixel=_RAMP_COLOURS[level - 1] if color else None)
+        fig.draw(fig.signal(((cols + 0.5) / ncols).tolist(), ((rows + 0.5) / nrows).tolist(),
+                            marker=marker))
 
 
 def histogram(edges, density, *, name, width=80, height=20, color=False) -> str:
@@ -344,11 +420,43 @@ def convergence(steps, series, *, width=80, height=20, color=False, xname="step"
     """
     width, height = _check_size(width, height)
     xname = _check_label(xname, "xname")
+    x = _steps(steps)
+    curves = _curves(series, x)
+    view = _convergence_view(x, curves)
+    key = "   ".join(f"{_SERIES_MARKERS[i]} {c.label}" for i, c in enumerate(curves))
+    canvas_rows = height - _FRAME_ROWS - 1
+    integer_x = not view.logx and bool(np.all(x == np.round(x)))
+
+    with _figure(width, height, color) as fig:
+        for i, c in enumerate(view.curves):
+            curve = fig.signal(view.xspan(view.x).tolist(), view.yspan(c.values).tolist(),
+                               marker=_SERIES_MARKERS[i])
+            fig.draw(curve.lines(True).density("full"))
+        _set_axes(fig, width, canvas_rows, view.xspan, view.yspan, xint=integer_x,
+                  xlog=view.logx, ylog=view.logy)
+        fig.label(_fit(xname, width), axis="x")
+        fig.title(_fit(key, width))
+        return _render(fig, color)
+
+
+def _steps(steps) -> np.ndarray:
     x = _vector(steps, "steps")
     if np.any(np.diff(x) <= 0):
         i = int(np.argmax(np.diff(x) <= 0))
         raise ValueError(f"`steps` must be strictly increasing: position {i + 1} "
                          f"({_short(x[i + 1])}) follows {_short(x[i])}")
+    return x
+
+
+@dataclass(frozen=True)
+class _Curve:
+    """One series of a convergence plot: its label and its values."""
+
+    label: str
+    values: np.ndarray
+
+
+def _curves(series, x: np.ndarray) -> list[_Curve]:
     if not isinstance(series, Mapping) or len(series) == 0:
         raise ValueError("`series` must be a non-empty mapping of label -> values")
     if len(series) > len(_SERIES_MARKERS):
@@ -361,36 +469,50 @@ def convergence(steps, series, *, width=80, height=20, color=False, xname="step"
         v = _vector(values, where)
         if v.size != x.size:
             raise ValueError(f"`{where}` has {v.size} values but `steps` has {x.size}")
-        curves.append((label, v))
+        curves.append(_Curve(label, v))
+    return curves
 
-    allv = np.concatenate([v for _, v in curves])
+
+@dataclass(frozen=True)
+class _ConvergenceView:
+    """The curves as drawn: a log axis is a linear one over log10 of the values, with
+    its ticks on whole decades (plotext's own log scale does not take explicit
+    limits and ticks).
+
+    Attributes
+    ----------
+    x : ndarray
+        The steps, or their log10.
+    curves : list of _Curve
+        The values, or their log10.
+    logx, logy : bool
+    xspan, yspan : _Span
+    """
+
+    x: np.ndarray
+    curves: list[_Curve]
+    logx: bool
+    logy: bool
+    xspan: _Span
+    yspan: _Span
+
+
+def _convergence_view(x: np.ndarray, curves: list[_Curve]) -> _ConvergenceView:
+    allv = np.concatenate([c.values for c in curves])
     logy = bool(np.all(allv > 0) and np.log10(allv.max()) - np.log10(allv.min()) > 2)
     logx = bool(np.all(x > 0) and np.log10(x.max()) - np.log10(x.min()) > 2)
-    # A log axis is drawn as a linear one over log10 of the values, with its ticks on
-    # whole decades: plotext's own log scale does not take explicit limits and ticks.
     px = np.log10(x) if logx else x
-    curves = [(label, np.log10(v) if logy else v) for label, v in curves]
+    drawn = [_Curve(c.label, np.log10(c.values) if logy else c.values) for c in curves]
     if px.size > 1:
         xspan = _span(float(px[0]), float(px[-1]), "steps")
     else:
         xspan = _span(float(px[0]) - 1, float(px[0]) + 1, "steps")
-    low, high = min(float(v.min()) for _, v in curves), max(float(v.max()) for _, v in curves)
+    low = min(float(c.values.min()) for c in drawn)
+    high = max(float(c.values.max()) for c in drawn)
     if high == low:                          # one flat line: give it some room
         pad = max(abs(low) * 0.1, 1.0)
         low, high = low - pad, high + pad
-    yspan = _span(low, high, "series")
-    key = "   ".join(f"{_SERIES_MARKERS[i]} {label}" for i, (label, _) in enumerate(curves))
-    canvas_rows = height - _FRAME_ROWS - 1
-    integer_x = not logx and bool(np.all(x == np.round(x)))
-
-    with _figure(width, height, color) as fig:
-        for i, (label, v) in enumerate(curves):
-            curve = fig.signal(xspan(px).tolist(), yspan(v).tolist(), marker=_SERIES_MARKERS[i])
-            fig.draw(curve.lines(True).density("full"))
-        _set_axes(fig, width, canvas_rows, xspan, yspan, xint=integer_x, xlog=logx, ylog=logy)
-        fig.label(_fit(xname, width), axis="x")
-        fig.title(_fit(key, width))
-        return _render(fig, color)
+    return _ConvergenceView(px, drawn, logx, logy, xspan, _span(low, high, "series"))
 
 
 # --------------------------------------------------------------------------------------

@@ -92,7 +92,7 @@ def setup(compiled: Compiled) -> FrameSetup:
     with _counted() as count:
         target = refine._Target(compiled, {})
         modes = refine.find_modes(compiled, {})
-        u = modes[0][0]
+        u = modes[0].u
         H = refine._symbolic_hessian_u(target, u)
         if H is None:
             H = refine._hessian(target, u, np.full(u.size, 1e-4))

@@ -262,3 +262,43 @@ def test_grid_auto_refuses_twenty_dimensions_with_the_figure():
         w.prior(f"a{i}", "normal(0, 1)")
     with pytest.raises(ComputeError, match=r"3\^20 points.*wrong tool"):
         w.cost()
+
+
+# ---------------------------------------------------------------------------
+# the table of scales (engine.grid.SCALE_TABLE), used by the axes and by `grid auto`
+
+@pytest.mark.parametrize("name,lo,hi", [("linear", -math.inf, math.inf), ("log", 2.0, math.inf),
+                                        ("logit", -1.0, 3.0)])
+def test_every_scale_inverts_and_its_jacobian_is_the_derivative(name, lo, hi):
+    # calculus (common practice): to_u inverts to_value; exp(logjac) is d value / du,
+    # checked by central differences; `derivatives` gives the first and second
+    # derivatives of value and the second derivative of logjac, also by differences
+    from engine.grid import SCALE_TABLE
+    s = SCALE_TABLE[name]
+    u = np.linspace(-4.0, 4.0, 17)
+    v = s.to_value(u, lo, hi)
+    assert np.allclose(s.to_u(v, lo, hi), u, rtol=0, atol=1e-12)
+    h = 1e-5
+    dv = (s.to_value(u + h, lo, hi) - s.to_value(u - h, lo, hi)) / (2 * h)
+    assert np.allclose(np.exp(s.logjac(u, lo, hi)), dv, rtol=1e-8)
+    for x in (-2.5, 0.0, 1.5):
+        d = s.derivatives(x, lo, hi)
+        f = lambda t: float(s.to_value(np.array(t), lo, hi))
+        g = lambda t: float(s.logjac(np.array([t]), lo, hi)[0])
+        hh = 1e-4
+        assert d.first == pytest.approx((f(x + h) - f(x - h)) / (2 * h), rel=1e-8)
+        assert d.second == pytest.approx((f(x + hh) - 2 * f(x) + f(x - hh)) / hh**2,
+                                         rel=1e-5, abs=1e-6)
+        assert d.logjac_second == pytest.approx((g(x + hh) - 2 * g(x) + g(x - hh)) / hh**2,
+                                                rel=1e-5, abs=1e-6)
+
+
+def test_scale_limits_mark_where_values_reach_the_domain_edge():
+    # double precision (common practice): beyond its upper limit the logit scale's
+    # values equal the domain's top; just inside they are still below it
+    from engine.grid import SCALE_TABLE
+    s = SCALE_TABLE["logit"]
+    top = s.limits[1]
+    assert float(s.to_value(np.array(top + 2.0), 0.0, 1.0)) == 1.0
+    assert float(s.to_value(np.array(top - 2.0), 0.0, 1.0)) < 1.0
+    assert SCALE_TABLE["log"].derivatives(SCALE_TABLE["log"].limits[1] + 1, 0.0, math.inf) is None
