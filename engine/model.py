@@ -865,10 +865,16 @@ def _reduce_sum(expr, conds, psyms, csyms, colvals):
     return total, stat_syms, stats, red_conds, sp.Add(*remainder), rem_conds, defs
 
 
-def _sum_terms(expr, conds, params, csyms, colvals, *, reduce: bool = True) -> list[Term]:
-    """The terms of sum_rows expr (with its row conditions)."""
+def _sum_terms(expr, conds, params, csyms, colvals, *, reduce: bool = True,
+               separable=None) -> list[Term]:
+    """The terms of sum_rows expr (with its row conditions). `separable` is the same
+    sum written in separable pieces (a family's textbook form), reduced in place of
+    `expr` when it reduces whole; `expr` (the stable form) is what is checked against."""
     psyms = [p.symbol for p in params]
-    red = _reduce_sum(expr, conds, psyms, csyms, colvals) if reduce else None
+    red = _reduce_sum(expr if separable is None else separable, conds, psyms, csyms,
+                      colvals) if reduce else None
+    if red is not None and separable is not None and red[4] != 0:
+        red = None  # a stable form is not split into reduced and row-wise pieces
     if red is None:
         return [_row_term(expr, conds, psyms, csyms, colvals)]
     total, ssyms, stats, rconds, rem, rem_conds, defs = red
@@ -1092,7 +1098,8 @@ def compile_model(model: Model, data: DataSet, *, reduce: bool = True,
                     raise ModelError(f"{where}: `{f.name if f else 'term'}` needs "
                                      f"{'; '.join(f.constraints) if f else str(c)}")
             _check_data_conds(donly, csyms, colvals, where, f, cols)
-            terms.extend(_sum_terms(t.expr, mixed, params, csyms, colvals, reduce=reduce))
+            terms.extend(_sum_terms(t.expr, mixed, params, csyms, colvals, reduce=reduce,
+                                    separable=t.separable))
             rc = tuple(n for n, cs in zip(cols, csyms) if cs in t.expr.free_symbols)
             symbolic.append((t.expr, rc, tuple(colvals[cols.index(n)] for n in rc)))
             if pconds:
