@@ -65,11 +65,13 @@ def _logit(x):
 
 
 def _lbeta(a, b):
-    return S.gammaln(a) + S.gammaln(b) - S.gammaln(a + b)
+    # one function (scipy's betaln), not a difference of lgammas: that would have no
+    # correct digit at a, b near 1e15
+    return S.betaln(a, b)
 
 
 def _lchoose(n, k):
-    return S.gammaln(n + 1) - S.gammaln(k + 1) - S.gammaln(n - k + 1)
+    return S.lchoose(n, k)
 
 
 def _log(x):
@@ -108,7 +110,7 @@ FUNCTIONS: dict[str, Function] = {
         Function("lgamma", (1, 1), S.gammaln, sc.gammaln, "lgamma(x): log of the gamma function"),
         Function("lbeta", (2, 2), _lbeta, sc.betaln, "lbeta(a, b): log of the beta function"),
         Function("lchoose", (2, 2), _lchoose,
-                 lambda n, k: float(sc.gammaln(n + 1) - sc.gammaln(k + 1) - sc.gammaln(n - k + 1)),
+                 lambda n, k: float(-np.log1p(n) - sc.betaln(n - k + 1, k + 1)),
                  "lchoose(n, k): log of the binomial coefficient"),
         Function("erf", (1, 1), sp.erf, sc.erf, "erf(x): error function"),
         Function("erfc", (1, 1), sp.erfc, sc.erfc, "erfc(x): 1 - erf(x)"),
