@@ -585,9 +585,12 @@ def bbinom_logpmf(k, n, a, b):
         par_s = _rest0(a + b) - _rest0(a) - _rest0(b) if big.any() else 0.0
         data_p = -np.log1p(n) - sc.betaln(n - k + 1, k + 1) if not big.all() else 0.0
         par_p = sc.gammaln(a + b) - sc.gammaln(a) - sc.gammaln(b) if not big.all() else 0.0
-        return _choose(big, lambda k_, n_, a_, b_, d_, p_, dp, pp: _bbinom_split(k_, n_, a_, b_, d_, p_),
-                       lambda k_, n_, a_, b_, d_, p_, dp, pp: _bbinom_plain(k_, n_, a_, b_, dp, pp),
-                       k, n, a, b, data_s, par_s, data_p, par_p)
+        out = _choose(big, lambda k_, n_, a_, b_, d_, p_, dp, pp: _bbinom_split(k_, n_, a_, b_, d_, p_),
+                      lambda k_, n_, a_, b_, d_, p_, dp, pp: _bbinom_plain(k_, n_, a_, b_, dp, pp),
+                      k, n, a, b, data_s, par_s, data_p, par_p)
+        # zero outside the support (never NaN: a bound on a parameter n may have been
+        # reduced to a statistic and checked apart from this term)
+        return np.where((k < 0) | (k > n), -np.inf, out)
 
 
 def log_bbinom_sf(k, n, a, b):
@@ -615,11 +618,19 @@ def log_bbinom_sf(k, n, a, b):
 def hypergeom_logpmf(k, N, K, n):
     """log P(X = k) for X the successes in n draws without replacement from N items of
     which K are successes, as three binomial terms at p = n/N (each near its mode)."""
-    k, N, K, n = _arrays(k, N, K, n)
+    k, N, K, n = (np.asarray(v, dtype=float) for v in (k, N, K, n))
     with np.errstate(all="ignore"):
         p = n / np.maximum(N, 1)
         q = 1 - p
-        return lbinom(k, K, p, q) + lbinom(n - k, N - K, p, q) - lbinom(n, N, p, q)
+        out = lbinom(k, K, p, q) + lbinom(n - k, N - K, p, q) - lbinom(n, N, p, q)
+        return np.where(_hypergeom_outside(k, N, K, n), -np.inf, out)
+
+
+def _hypergeom_outside(k, N, K, n):
+    """Where k is outside the support, or (N, K, n) is not a population and a draw from
+    it (zero probability there, never NaN)."""
+    return ((K < 0) | (K > N) | (n < 0) | (n > N) | (k < 0) | (k > n) | (k > K)
+            | (N - K < n - k))
 
 
 def log_hypergeom_sf(k, N, K, n):
@@ -637,8 +648,12 @@ def log_hypergeom_sf(k, N, K, n):
         NN, KK, nn = N[m], K[m], n[m]
         return np.log(kk * (NN - KK - nn + kk)) - np.log((KK - kk + 1) * (nn - kk + 1))
 
+    # no population: zero probability (evaluated as the empty population, then set)
+    bad = (K < 0) | (K > N) | (n < 0) | (n > N)
+    N, K, n = (np.where(bad, 0.0, v) for v in (N, K, n))
     with np.errstate(all="ignore"):
         mean = n * K / np.maximum(N, 1)
         lo = np.maximum(0.0, n - (N - K))
         hi = np.minimum(n, K)
-    return _discrete_log_sf(k, mean, lpmf, up, down, lo, hi, np.ones(k.shape, bool))
+    out = _discrete_log_sf(k, mean, lpmf, up, down, lo, hi, np.ones(k.shape, bool))
+    return np.where(bad, -np.inf, out)
