@@ -331,9 +331,10 @@ class _Builder:
         self.fail(f"unknown name `{ident}`", node)
 
     def arith(self, value, node) -> sp.Expr:
-        if isinstance(value, (sp.logic.boolalg.Boolean, sp.core.relational.Relational)) \
-                and not isinstance(value, sp.Expr):
-            self.fail(f"condition `{self.segment(node)}` cannot be used as a number", node)
+        # a condition where a number is expected (an operand of arithmetic, an argument
+        # of a function) counts 1 where it holds and 0 where it does not
+        if _is_condition(value):
+            return indicator(value)
         return value
 
     def binop(self, node: ast.BinOp, depth: int) -> sp.Expr:
@@ -378,8 +379,6 @@ class _Builder:
         value = self.build(inner, depth + 1)
         for op in reversed(ops):
             if op is ast.Not:
-                if not self.conditions:
-                    self.fail("`not` belongs in a condition, not a formula", node)
                 value = sp.Not(self.condition(value, inner))
             elif op is ast.USub:
                 value = -self.arith(value, inner)
@@ -435,8 +434,6 @@ class _Builder:
         return value
 
     def compare(self, node: ast.Compare, depth: int):
-        if not self.conditions:
-            self.fail("a comparison belongs in a condition, not a formula", node)
         left = self.arith(self.build(node.left, depth + 1), node.left)
         parts = []
         for op, right in zip(node.ops, node.comparators):
@@ -452,8 +449,6 @@ class _Builder:
         return parts[0] if len(parts) == 1 else sp.And(*parts)
 
     def boolop(self, node: ast.BoolOp, depth: int):
-        if not self.conditions:
-            self.fail("`and` / `or` belong in a condition, not a formula", node)
         values = [self.condition(self.build(v, depth + 1), v) for v in node.values]
         return sp.And(*values) if isinstance(node.op, ast.And) else sp.Or(*values)
 
@@ -482,8 +477,10 @@ def parse(text: str, names: Mapping[str, sp.Expr], *, condition: bool = False) -
     ----------
     text : str
         The formula as typed: arithmetic ``+ - * / ^ **``, parentheses, numbers,
-        names and the functions of `FUNCTIONS`; with ``condition=True`` also
-        ``< <= > >= == !=`` and ``and or not``.
+        names and the functions of `FUNCTIONS`; with ``condition=True`` a condition
+        built of ``< <= > >= == !=`` and ``and or not``. A condition used where a
+        number is expected (in parentheses as an operand, ``b * (year > k)``, or as
+        a function's argument) is an indicator: 1 where it holds, 0 where not.
     names : mapping of str to sympy expression
         What each name stands for.
     condition : bool, keyword-only
@@ -510,9 +507,43 @@ def parse(text: str, names: Mapping[str, sp.Expr], *, condition: bool = False) -
             raise FormulaError(
                 f"`{text.strip()[:40]}` is a number, not a condition (compare it, as in x > 0)")
         return value
-    if not isinstance(value, sp.Expr):
-        raise FormulaError(f"`{text.strip()[:40]}` is a condition, not a number")
+    if _is_condition(value):
+        if not _parenthesised(text):
+            shown = text.strip()[:40]
+            raise FormulaError(f"`{shown}` is a condition, not a number; for 1 where it "
+                               f"holds and 0 where not, put it in parentheses: ({shown})",
+                               len(text) - len(text.lstrip()) + 1)
+        return indicator(value)
     return value
+
+
+def _is_condition(value) -> bool:
+    return isinstance(value, (sp.logic.boolalg.Boolean, sp.core.relational.Relational)) \
+        and not isinstance(value, sp.Expr)
+
+
+def indicator(cond) -> sp.Expr:
+    """1 where condition `cond` holds and 0 where it does not, as a sympy expression
+    (a Piecewise, which compiles to numpy's select; derivatives are 0 almost everywhere)."""
+    if cond is sp.true or cond == sp.true:
+        return sp.Integer(1)
+    if cond is sp.false or cond == sp.false:
+        return sp.Integer(0)
+    return sp.Piecewise((sp.Integer(1), cond), (sp.Integer(0), True))
+
+
+def _parenthesised(text: str) -> bool:
+    """Whether the whole of `text` is one pair of parentheses and what they hold."""
+    t = text.strip()
+    if not t.startswith("("):
+        return False
+    depth = 0
+    for i, ch in enumerate(t):
+        depth += ch == "("
+        depth -= ch == ")"
+        if depth == 0:
+            return i == len(t) - 1
+    return False
 
 
 def _read(text: str) -> tuple[ast.Expression, list[int]]:
