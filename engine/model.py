@@ -301,7 +301,7 @@ _MODULES = [S.NAMESPACE, "scipy", "numpy"]
 def _lambdify(args: Sequence[sp.Symbol], expr: sp.Basic) -> Callable:
     # the generated code holds only placeholder names (_t0, _c0, _s0) and numbers:
     # no text a user typed reaches it
-    return sp.lambdify(list(args), expr, modules=_MODULES, cse=True)
+    return sp.lambdify(list(args), expr, modules=_MODULES, cse=True, printer=S.code_printer())
 
 
 def _placeholders(prefix: str, n: int) -> list[sp.Symbol]:
@@ -404,19 +404,31 @@ class ReducedTerm:
     conds: Callable | None
     fallback: RowTerm      # the same sum done row by row, to verify against
     defs: tuple[StatDef, ...] = ()
+    #: Where `fallback` is a stable form (a family's): the sum of the magnitudes of the
+    #: reduced form's terms, same arguments as `fn`. Points where the reduced sum would
+    #: lose more than about `tol` to cancellation are summed row by row instead.
+    magnitude: Callable | None = None
+    tol: float = 1e-8
 
     def restat(self, data: dict[str, np.ndarray], rows: int) -> "ReducedTerm":
         """The same term over other rows (a dict of column arrays of length `rows`).
 
         Raises ValueError where a statistic does not apply (then evaluate those rows
         with a fresh compile instead)."""
-        return replace(self, stats=tuple(d.value(data, rows) for d in self.defs))
+        # the row-wise form holds the original rows: it cannot stand in for these
+        return replace(self, stats=tuple(d.value(data, rows) for d in self.defs),
+                       magnitude=None)
 
     def __call__(self, theta: Sequence[np.ndarray]) -> np.ndarray:
         n = theta[0].shape[0] if theta else 1
         th = [theta[i] for i in self.index]
         with np.errstate(all="ignore"):
             out = _as_array(self.fn(*th, *self.stats), n).copy()
+            if self.magnitude is not None:
+                mag = _as_array(self.magnitude(*th, *self.stats), n)
+                lost = ~(mag * 2.2e-16 <= self.tol)
+                if lost.any():
+                    out[lost] = self.fallback([t[lost] for t in theta])
             if self.conds is not None:
                 ok = _as_array(self.conds(*th, *self.stats), n, bool)
                 out[~ok] = -np.inf
@@ -892,7 +904,14 @@ def _sum_terms(expr, conds, params, csyms, colvals, *, reduce: bool = True,
         cp = _placeholders("c", len(ucols))
         stat_fns.append(StatDef(kind, _lambdify(cp, e.xreplace(
             {csyms[j]: cp[k] for k, j in enumerate(ucols)})), tuple(csyms[j].name for j in ucols)))
-    out: list[Term] = [ReducedTerm(fn, tuple(used), tuple(stats), cfn, fallback, tuple(stat_fns))]
+    mfn = None
+    if separable is not None:
+        # the reduced textbook form cancels at extreme parameters (a shape of 1e15):
+        # its terms' magnitudes say where, and there the stable form is summed instead
+        mag = sp.Add(*[sp.Abs(t) for t in sp.Add.make_args(total)])
+        mfn = _lambdify(tp + ssyms, mag.xreplace(sub))
+    out: list[Term] = [ReducedTerm(fn, tuple(used), tuple(stats), cfn, fallback, tuple(stat_fns),
+                                   mfn, 1e-8 * max(1.0, fallback.rows ** 0.5))]
     if rem != 0 or rem_conds:
         out.append(_row_term(rem, rem_conds, psyms, csyms, colvals))
     return out

@@ -11,9 +11,12 @@ curvature at the mode can be found symbolically.
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 import scipy.special as sc
 import sympy as sp
+from sympy.printing.numpy import SciPyPrinter
 
 from . import logspace as L
 
@@ -357,3 +360,25 @@ NAMESPACE = {
     "hypergeom_lpmf": L.hypergeom_logpmf,
     "log_hypergeom_sf": L.log_hypergeom_sf,
 }
+
+
+class _CodePrinter(SciPyPrinter):
+    """sympy's code printer, but every float printed with all the digits of a double:
+    sympy's own keeps 15 significant digits, so that ``1e15 + 1 - y`` (a constant folded
+    in exact arithmetic) would be compiled as ``1.0e+15 - y``."""
+
+    def _print_Float(self, expr):
+        v = float(expr)
+        return repr(v) if math.isfinite(v) else super()._print_Float(expr)
+
+    def _print_ComplexInfinity(self, expr):
+        # sympy's 1/0 (an indicator in a denominator, where it is 0): not a real
+        # number, so NaN, which the conditions mask or the pass reports with its place
+        return self._print(sp.nan)
+
+
+def code_printer() -> SciPyPrinter:
+    """The printer to lambdify with (modules ``[NAMESPACE, "scipy", "numpy"]``)."""
+    return _CodePrinter({"fully_qualified_modules": False, "inline": True,
+                         "allow_unknown_functions": True,
+                         "user_functions": {k: k for k in NAMESPACE}})

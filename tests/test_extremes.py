@@ -266,3 +266,48 @@ def test_first_and_second_derivatives_match_mpmath(name, args, k, xs):
         # even where it is 1e-20 (a concentration of 1e12)
         assert got2 == pytest.approx(ref2, rel=1e-7), (xv, got2, ref2)
         assert got1 == pytest.approx(ref1, rel=1e-6, abs=1e-9 * abs(ref2) ** 0.5), (xv, got1, ref1)
+
+
+# ---------------------------------------------------------------------------------
+# through the model: sums over rows reduce to sufficient statistics with the textbook
+# form, which cancels at extreme parameters; there the stable form must be summed
+
+THROUGH = [
+    # family, data, argument texts in theta, theta values
+    ("gamma", [10.0, 10.00000001, 9.99999999, 10.000000005], ("theta", "theta/10"),
+     [3.0, 1e8, 1e12, 2e18]),
+    ("poisson", [1e12 + 3e5, 1e12 - 1e6, 1e12 + 2e6], ("theta",), [1e12, 1e12 + 1e6, 7.0e11]),
+    ("binomial", [3e14 + 1e7, 3e14 - 2e7], ("1e15", "theta"), [0.3, 0.3 + 1e-8]),
+    ("neg_binomial", [1e9 + 2e4, 1e9 - 3e4], ("1e9", "theta"), [0.5, 0.5 + 1e-5]),
+    ("beta", [0.25, 0.25 + 1e-8, 0.25 - 2e-8], ("theta", "3*theta"), [2.0, 1e9, 1e15]),
+    ("inv_gamma", [1.0, 1.0 + 1e-9, 1.0 - 2e-9], ("theta", "theta"), [5.0, 1e10, 1e17]),
+]
+
+
+@pytest.mark.parametrize("name, ys, texts, values", THROUGH, ids=[c[0] for c in THROUGH])
+def test_reduced_sums_keep_their_digits_at_extreme_parameters(name, ys, texts, values):
+    from engine.data import Column, DataSet
+    from engine.expr import parse
+    from engine.model import Likelihood, Model, compile_model, make_param
+    kind = "unit" if name in ("binomial", "neg_binomial") else "positive"
+    theta = make_param("theta", kind)
+    model, _ = Model().with_param(theta)
+    args = tuple(parse(t, {"theta": theta.symbol}) for t in texts)
+    model, _ = model.with_likelihood(Likelihood("y", name, args))
+    data, _ = DataSet().with_column(Column("y", np.array(ys)))
+    c = compile_model(model, data)
+    assert c.reduced  # the textbook form reduces: the check is of its precision
+    got = c.log_likelihood([np.array(values)])
+    for v, g in zip(values, got):
+        argv = [float(eval_text(t, v)) for t in texts]
+        ref = sum(R.logpdf(name, y, *argv) for y in ys)  # mpmath, term by term
+        # arguments near 1e15: one rounding of n*p or a*x moves the result by ~1e-9
+        # relative (the condition number; see LOGPDF_TOL)
+        big = max(abs(a) for a in argv + list(ys)) > 1e6
+        assert g == pytest.approx(ref, rel=3e-9 if big else 1e-12, abs=1e-12), (v, g, ref)
+
+
+def eval_text(text: str, theta: float) -> float:
+    """The argument texts of THROUGH at theta (they are ours: theta, theta/10, 3*theta, 1e9)."""
+    table = {"theta": theta, "theta/10": theta / 10, "3*theta": 3 * theta}
+    return table[text] if text in table else float(text)

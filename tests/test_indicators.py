@@ -156,7 +156,8 @@ def _normal_model(mean_text: str):
 ])
 def test_sufficient_statistics_reduce_or_fall_back(mean_text, reduces):
     model, data = _normal_model(mean_text)
-    theta = [np.array([1.0, 2.5, 0.3]), np.array([-0.5, 1.0, 2.0]), np.array([1860.0, 1870.0, 1881.0])]
+    theta = [np.array([1.0, 2.5, 0.3]), np.array([-0.5, 1.0, 2.0]),
+             np.array([1860.0, 1870.0, 1881.0])]
     rows = compile_model(model, data, reduce=False).log_likelihood(theta)
     c = compile_model(model, data).verified(theta)
     assert c.reduced is reduces
@@ -167,3 +168,18 @@ def test_sufficient_statistics_reduce_or_fall_back(mean_text, reduces):
         ref = float(np.sum(st.norm(mu, 0.7).logpdf(COUNTS)))  # scipy.stats
         assert got[i] == pytest.approx(ref, rel=1e-12)
         assert rows[i] == pytest.approx(ref, rel=1e-12)
+
+
+def test_an_indicator_in_a_denominator_is_an_error_with_its_place_not_a_crash():
+    # 1/(p < m) is 1/0 where the condition fails: sympy's complex infinity there, which
+    # must compile (as NaN) and be reported by the pass, not end in an internal error
+    from engine.errors import ComputeError
+    w = Workspace()
+    w.param("m", "real")
+    w.param("p", "unit")
+    w.data_typed("y", ["1", "2", "3"])
+    w.likelihood("y", "normal(m, 1/(p < m))")
+    w.grid("m", -3.0, 3.0, 21)
+    w.grid("p", 0.01, 0.99, 21)
+    with pytest.raises(ComputeError, match=r"the log-density is NaN at .* first at m = "):
+        w.compute()
