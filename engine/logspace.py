@@ -552,7 +552,7 @@ def _bd0(c, e):
         return np.where(c == 0, e, np.where(np.isinf(e), np.inf, v))
 
 
-def _bbinom_split(k, n, a, b, data, par):
+def _bbinom_split(k, n, a, b, data, par, _data_plain=None, _par_plain=None):
     # the z log z terms of the nine lgammas are minus the G statistic of the 2 x 2 table
     # [[k, n - k], [a, b]]: -sum over cells of bd0(cell, its expected value)
     y = n - k
@@ -563,7 +563,7 @@ def _bbinom_split(k, n, a, b, data, par):
     return data + par + _rest0(k + a) + _rest0(y + b) - _rest0(N) - g
 
 
-def _bbinom_plain(k, n, a, b, data, par):
+def _bbinom_plain(k, n, a, b, _data_split, _par_split, data, par):
     return data + par + sc.gammaln(k + a) + sc.gammaln(n - k + b) - sc.gammaln(n + a + b)
 
 
@@ -585,9 +585,8 @@ def bbinom_logpmf(k, n, a, b):
         par_s = _rest0(a + b) - _rest0(a) - _rest0(b) if big.any() else 0.0
         data_p = -np.log1p(n) - sc.betaln(n - k + 1, k + 1) if not big.all() else 0.0
         par_p = sc.gammaln(a + b) - sc.gammaln(a) - sc.gammaln(b) if not big.all() else 0.0
-        out = _choose(big, lambda k_, n_, a_, b_, d_, p_, dp, pp: _bbinom_split(k_, n_, a_, b_, d_, p_),
-                      lambda k_, n_, a_, b_, d_, p_, dp, pp: _bbinom_plain(k_, n_, a_, b_, dp, pp),
-                      k, n, a, b, data_s, par_s, data_p, par_p)
+        out = _choose(big, _bbinom_split, _bbinom_plain, k, n, a, b,
+                      data_s, par_s, data_p, par_p)
         # zero outside the support (never NaN: a bound on a parameter n may have been
         # reduced to a statistic and checked apart from this term)
         return np.where((k < 0) | (k > n), -np.inf, out)
