@@ -23,6 +23,7 @@ import numpy as np
 import scipy.special as sc
 import sympy as sp
 
+from . import logspace as L
 from . import special as S
 from .errors import FormulaError
 
@@ -65,8 +66,8 @@ def _logit(x):
 
 
 def _lbeta(a, b):
-    # one function (scipy's betaln), not a difference of lgammas: that would have no
-    # correct digit at a, b near 1e15
+    # one function (engine/logspace.py), not a difference of lgammas: that would have
+    # no correct digit at a, b near 1e15
     return S.betaln(a, b)
 
 
@@ -108,9 +109,10 @@ FUNCTIONS: dict[str, Function] = {
         Function("logit", (1, 1), _logit, sc.logit, "logit(p): log(p / (1 - p))"),
         Function("inv_logit", (1, 1), S.expit, sc.expit, "inv_logit(x): 1 / (1 + exp(-x))"),
         Function("lgamma", (1, 1), S.gammaln, sc.gammaln, "lgamma(x): log of the gamma function"),
-        Function("lbeta", (2, 2), _lbeta, sc.betaln, "lbeta(a, b): log of the beta function"),
+        Function("lbeta", (2, 2), _lbeta, lambda a, b: float(L.lbeta(a, b)),
+                 "lbeta(a, b): log of the beta function"),
         Function("lchoose", (2, 2), _lchoose,
-                 lambda n, k: float(-np.log1p(n) - sc.betaln(n - k + 1, k + 1)),
+                 lambda n, k: float(-np.log1p(n) - L.lbeta(n - k + 1, k + 1)),
                  "lchoose(n, k): log of the binomial coefficient"),
         Function("erf", (1, 1), sp.erf, sc.erf, "erf(x): error function"),
         Function("erfc", (1, 1), sp.erfc, sc.erfc, "erfc(x): 1 - erf(x)"),

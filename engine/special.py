@@ -232,7 +232,7 @@ class psi_diff(sp.Function):
 
 
 class betaln(sp.Function):
-    """``log B(a, b)``, accurate also where both arguments are large."""
+    """``log B(a, b)``, accurate also where one or both arguments are large."""
 
     nargs = 2
 
@@ -328,7 +328,7 @@ class log_hypergeom_sf(_NoDerivative):
 
 def _lchoose(n, k):
     with np.errstate(all="ignore"):
-        return -np.log1p(n) - sc.betaln(n - k + 1, k + 1)
+        return -np.log1p(n) - L.lbeta(n - k + 1, k + 1)
 
 
 # Names the generated code resolves, and what they are in scipy / numpy.
@@ -348,7 +348,7 @@ NAMESPACE = {
     "nbinom_lpmf": L.nbinom_logpmf,
     "lrising": L.lrising,
     "psi_diff": L.psi_diff,
-    "betaln": sc.betaln,
+    "betaln": L.lbeta,
     "lchoose": _lchoose,
     "log1p_sq": L.log1p_sq,
     "log_gammainc": L.log_gammainc,
