@@ -254,16 +254,11 @@ def _lchoose(n, k):
     return S.gammaln(n + 1) - S.gammaln(k + 1) - S.gammaln(n - k + 1)
 
 
-def _lbinom(k, n, p):
-    """log C(n, k) p^k (1-p)^(n-k) as three Poisson probabilities (of k at rate np, of
-    n - k at rate n(1-p), over that of n at rate n): no large terms cancel."""
-    return (S.log_gamma_pdf(k + 1, n * p) + S.log_gamma_pdf(n - k + 1, n * (1 - p))
-            - S.log_gamma_pdf(n + 1, n))
-
-
 def _binomial(x, n, p):
     textbook = _lchoose(n, x) + S.xlogy(x, p) + S.xlog1py(n - x, -p)
-    return Term(_lbinom(x, n, p), (sp.Ge(n, 0), _int(n), sp.Ge(p, 0), sp.Le(p, 1),
+    # at large n, three Poisson probabilities (of x at rate np, of n - x at rate n(1-p),
+    # over that of n at rate n): no large terms cancel
+    return Term(S.binom_lpmf(x, n, p), (sp.Ge(n, 0), _int(n), sp.Ge(p, 0), sp.Le(p, 1),
                                    sp.Ge(x, 0), sp.Le(x, n), _int(x)), textbook)
 
 

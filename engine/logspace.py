@@ -181,6 +181,19 @@ def _beta_plain(x, a, b, y):
             - (sc.gammaln(a) + sc.gammaln(b) - sc.gammaln(a + b)))
 
 
+def _binom_plain(k, n, p):
+    return (sc.gammaln(n + 1) - sc.gammaln(k + 1) - sc.gammaln(n - k + 1) + sc.xlogy(k, p)
+            + sc.xlog1py(n - k, -p))
+
+
+def binom_logpmf(k, n, p):
+    """log of the binomial(n, p) probability of k, stable at large n (three Poisson
+    terms, `lbinom`); the textbook form below n = PLAIN_BELOW."""
+    k, n, p = (np.asarray(v, dtype=float) for v in (k, n, p))
+    with np.errstate(all="ignore"):
+        return _choose(n >= PLAIN_BELOW, lbinom, _binom_plain, k, n, p)
+
+
 def beta_logpdf(x, a, b, y=None):
     """log of the beta(a, b) density at x (y = 1 - x), stable at large a and b."""
     x, a, b = (np.asarray(v, dtype=float) for v in (x, a, b))

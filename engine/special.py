@@ -161,6 +161,18 @@ class beta_lpdf(sp.Function):
         return log1p(-x) + psi_diff(0, b, a)
 
 
+class binom_lpmf(sp.Function):
+    """log of the binomial(n, p) probability of x, args ``(x, n, p)``, stable at large n."""
+
+    nargs = 3
+
+    def fdiff(self, argindex=1):
+        x, n, p = self.args
+        if argindex == 3:
+            return x / p - (n - x) / (1 - p)
+        raise sp.ArgumentIndexError(self, argindex)
+
+
 class nbinom_lpmf(sp.Function):
     """log of the negative binomial(r, p) probability of x, args ``(x, r, p)``."""
 
@@ -346,6 +358,7 @@ NAMESPACE = {
     "bbinom_lpmf": L.bbinom_logpmf,
     "beta_lpdf": L.beta_logpdf,
     "nbinom_lpmf": L.nbinom_logpmf,
+    "binom_lpmf": L.binom_logpmf,
     "lrising": L.lrising,
     "psi_diff": L.psi_diff,
     "betaln": L.lbeta,
