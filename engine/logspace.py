@@ -398,28 +398,32 @@ def _gamma_upper_tail(a, x):
     return out
 
 
+def _log_of(v, vc, fix, tail, *args):
+    """log of a probability `v` (its complement `vc` given as accurately): log1p(-vc)
+    where v is near 1, log(v) elsewhere, and ``tail(*args)`` (in log space) on `fix`,
+    where v underflows."""
+    out = np.where(v > 0.5, np.log1p(-vc), np.log(v))
+    if fix.any():
+        out[fix] = tail(*[a[fix] for a in args])
+    return out
+
+
 def log_gammainc(a, x):
     """``log P(a, x)``, the log of the regularised lower incomplete gamma function."""
     a, x = _arrays(a, x)
     with np.errstate(all="ignore"):
-        p = sc.gammainc(a, x)
-        out = np.where(p > 0.5, np.log1p(-sc.gammaincc(a, x)), np.log(p))
+        p, q = sc.gammainc(a, x), sc.gammaincc(a, x)
         fix = (p < TINY) & (a > 0) & (x > 0) & np.isfinite(x) & np.isfinite(a)
-        if fix.any():
-            out[fix] = _gamma_lower_tail(a[fix], x[fix])
-    return out
+        return _log_of(p, q, fix, _gamma_lower_tail, a, x)
 
 
 def log_gammaincc(a, x):
     """``log Q(a, x)``, the log of the regularised upper incomplete gamma function."""
     a, x = _arrays(a, x)
     with np.errstate(all="ignore"):
-        q = sc.gammaincc(a, x)
-        out = np.where(q > 0.5, np.log1p(-sc.gammainc(a, x)), np.log(q))
+        p, q = sc.gammainc(a, x), sc.gammaincc(a, x)
         fix = (q < TINY) & (a > 0) & (x > a) & np.isfinite(x) & np.isfinite(a)
-        if fix.any():
-            out[fix] = _gamma_upper_tail(a[fix], x[fix])
-    return out
+        return _log_of(q, p, fix, _gamma_upper_tail, a, x)
 
 
 def _beta_lower_tail(a, b, x, y, logx, logy):
@@ -475,12 +479,9 @@ def log_betainc(a, b, x, y=None, logx=None, logy=None):
         # each value and its complement from the argument that is exact (x or y)
         v = np.where(lo, sc.betainc(a, b, x), sc.betaincc(b, a, y))
         vc = np.where(lo, sc.betaincc(a, b, x), sc.betainc(b, a, y))
-        out = np.where(v > 0.5, np.log1p(-vc), np.log(v))
         fix = ((v < TINY) & (a > 0) & (b > 0) & (x > 0) & (y > 0)
                & np.isfinite(a) & np.isfinite(b))
-        if fix.any():
-            out[fix] = _beta_lower_tail(a[fix], b[fix], x[fix], y[fix], logx[fix], logy[fix])
-    return out
+        return _log_of(v, vc, fix, _beta_lower_tail, a, b, x, y, logx, logy)
 
 
 def log_betaincc(a, b, x):
