@@ -181,12 +181,71 @@ def parse_number(text: str, where: str) -> float:
     return check_value(v, where)
 
 
+#: Most values one typed column may hold (ranges included).
+MAX_TYPED_VALUES = 1_000_000
+
+
+def _typed_range(text: str, where: str) -> np.ndarray:
+    """``LO:HI`` or ``LO:HI:STEP``: LO, LO + STEP, ..., HI, both ends included."""
+    parts = text.split(":")
+    shown = text.strip()
+    if len(parts) > 3:
+        raise DataError(f"{where}: range `{shown}` has {len(parts)} parts; write LO:HI or "
+                        "LO:HI:STEP")
+    names = ("start", "end", "step")
+    for k, part in enumerate(parts):
+        if not part.strip():
+            raise DataError(f"{where}: range `{shown}` is missing its {names[k]}; write LO:HI "
+                            "or LO:HI:STEP")
+    lo, hi = (parse_number(parts[k], f"{where} (the {names[k]} of range `{shown}`)")
+              for k in range(2))
+    step = parse_number(parts[2], f"{where} (the step of range `{shown}`)") \
+        if len(parts) == 3 else 1.0
+    if step <= 0:
+        raise DataError(f"{where}: range `{shown}` needs a step > 0")
+    if hi < lo:
+        raise DataError(f"{where}: range `{shown}` runs backwards; write the smaller end "
+                        f"first ({parts[1].strip()}:{parts[0].strip()}"
+                        f"{':' + parts[2].strip() if len(parts) == 3 else ''})")
+    steps = (hi - lo) / step
+    whole = round(steps)
+    if abs(steps - whole) > 1e-9 * max(1.0, steps):
+        raise DataError(f"{where}: range `{shown}` does not end on a step: ({_g(hi)} - "
+                        f"{_g(lo)})/{_g(step)} = {steps:.6g} steps, not a whole number")
+    if whole + 1 > MAX_TYPED_VALUES:
+        raise DataError(f"{where}: range `{shown}` has {whole + 1:,.0f} values; at most "
+                        f"{MAX_TYPED_VALUES:,} may be typed (load more from a CSV file)")
+    vals = lo + step * np.arange(whole + 1, dtype=float)
+    vals[-1] = hi  # the end exactly, not lo + n*step rounded
+    return vals
+
+
+def _g(v: float) -> str:
+    return f"{v:g}"
+
+
 def typed_column(name: str, texts: list[str]) -> np.ndarray:
-    """Values typed as ``data NAME = v1, v2, ...``."""
-    vals = [parse_number(t, f"data `{name}` value {i + 1}") for i, t in enumerate(texts)]
-    if not vals:
+    """Values typed as ``data NAME = v1, v2, ...``; a value may be a range ``LO:HI`` or
+    ``LO:HI:STEP`` (both ends included)."""
+    pieces = []
+    total = 0
+    for i, t in enumerate(texts):
+        where = f"data `{name}` value {i + 1}"
+        if ":" in t:
+            if t.strip() == ":":
+                raise DataError(f"{where}: `:` alone is not a value; write a range without "
+                                "blanks, as 5:8")
+            piece = _typed_range(t, where)
+        else:
+            piece = np.array([parse_number(t, where)])
+        total += piece.size
+        if total > MAX_TYPED_VALUES:
+            raise DataError(f"data `{name}` has more than {MAX_TYPED_VALUES:,} values (at "
+                            f"value {i + 1}); load more from a CSV file")
+        pieces.append(piece)
+    if not pieces:
         raise DataError(f"data `{name}` has no values")
-    return _frozen(np.array(vals))
+    return _frozen(np.concatenate(pieces))
 
 
 def sha256_of(path: str) -> str:

@@ -23,6 +23,7 @@ import numpy as np
 import scipy.special as sc
 import sympy as sp
 
+from . import logspace as L
 from . import special as S
 from .errors import FormulaError
 
@@ -65,11 +66,13 @@ def _logit(x):
 
 
 def _lbeta(a, b):
-    return S.gammaln(a) + S.gammaln(b) - S.gammaln(a + b)
+    # one function (engine/logspace.py), not a difference of lgammas: that would have
+    # no correct digit at a, b near 1e15
+    return S.betaln(a, b)
 
 
 def _lchoose(n, k):
-    return S.gammaln(n + 1) - S.gammaln(k + 1) - S.gammaln(n - k + 1)
+    return S.lchoose(n, k)
 
 
 def _log(x):
@@ -106,9 +109,10 @@ FUNCTIONS: dict[str, Function] = {
         Function("logit", (1, 1), _logit, sc.logit, "logit(p): log(p / (1 - p))"),
         Function("inv_logit", (1, 1), S.expit, sc.expit, "inv_logit(x): 1 / (1 + exp(-x))"),
         Function("lgamma", (1, 1), S.gammaln, sc.gammaln, "lgamma(x): log of the gamma function"),
-        Function("lbeta", (2, 2), _lbeta, sc.betaln, "lbeta(a, b): log of the beta function"),
+        Function("lbeta", (2, 2), _lbeta, lambda a, b: float(L.lbeta(a, b)),
+                 "lbeta(a, b): log of the beta function"),
         Function("lchoose", (2, 2), _lchoose,
-                 lambda n, k: float(sc.gammaln(n + 1) - sc.gammaln(k + 1) - sc.gammaln(n - k + 1)),
+                 lambda n, k: float(-np.log1p(n) - L.lbeta(n - k + 1, k + 1)),
                  "lchoose(n, k): log of the binomial coefficient"),
         Function("erf", (1, 1), sp.erf, sc.erf, "erf(x): error function"),
         Function("erfc", (1, 1), sp.erfc, sc.erfc, "erfc(x): 1 - erf(x)"),
@@ -329,9 +333,10 @@ class _Builder:
         self.fail(f"unknown name `{ident}`", node)
 
     def arith(self, value, node) -> sp.Expr:
-        if isinstance(value, (sp.logic.boolalg.Boolean, sp.core.relational.Relational)) \
-                and not isinstance(value, sp.Expr):
-            self.fail(f"condition `{self.segment(node)}` cannot be used as a number", node)
+        # a condition where a number is expected (an operand of arithmetic, an argument
+        # of a function) counts 1 where it holds and 0 where it does not
+        if _is_condition(value):
+            return indicator(value)
         return value
 
     def binop(self, node: ast.BinOp, depth: int) -> sp.Expr:
@@ -376,8 +381,6 @@ class _Builder:
         value = self.build(inner, depth + 1)
         for op in reversed(ops):
             if op is ast.Not:
-                if not self.conditions:
-                    self.fail("`not` belongs in a condition, not a formula", node)
                 value = sp.Not(self.condition(value, inner))
             elif op is ast.USub:
                 value = -self.arith(value, inner)
@@ -433,8 +436,6 @@ class _Builder:
         return value
 
     def compare(self, node: ast.Compare, depth: int):
-        if not self.conditions:
-            self.fail("a comparison belongs in a condition, not a formula", node)
         left = self.arith(self.build(node.left, depth + 1), node.left)
         parts = []
         for op, right in zip(node.ops, node.comparators):
@@ -450,8 +451,6 @@ class _Builder:
         return parts[0] if len(parts) == 1 else sp.And(*parts)
 
     def boolop(self, node: ast.BoolOp, depth: int):
-        if not self.conditions:
-            self.fail("`and` / `or` belong in a condition, not a formula", node)
         values = [self.condition(self.build(v, depth + 1), v) for v in node.values]
         return sp.And(*values) if isinstance(node.op, ast.And) else sp.Or(*values)
 
@@ -480,8 +479,10 @@ def parse(text: str, names: Mapping[str, sp.Expr], *, condition: bool = False) -
     ----------
     text : str
         The formula as typed: arithmetic ``+ - * / ^ **``, parentheses, numbers,
-        names and the functions of `FUNCTIONS`; with ``condition=True`` also
-        ``< <= > >= == !=`` and ``and or not``.
+        names and the functions of `FUNCTIONS`; with ``condition=True`` a condition
+        built of ``< <= > >= == !=`` and ``and or not``. A condition used where a
+        number is expected (in parentheses as an operand, ``b * (year > k)``, or as
+        a function's argument) is an indicator: 1 where it holds, 0 where not.
     names : mapping of str to sympy expression
         What each name stands for.
     condition : bool, keyword-only
@@ -508,9 +509,43 @@ def parse(text: str, names: Mapping[str, sp.Expr], *, condition: bool = False) -
             raise FormulaError(
                 f"`{text.strip()[:40]}` is a number, not a condition (compare it, as in x > 0)")
         return value
-    if not isinstance(value, sp.Expr):
-        raise FormulaError(f"`{text.strip()[:40]}` is a condition, not a number")
+    if _is_condition(value):
+        if not _parenthesised(text):
+            shown = text.strip()[:40]
+            raise FormulaError(f"`{shown}` is a condition, not a number; for 1 where it "
+                               f"holds and 0 where not, put it in parentheses: ({shown})",
+                               len(text) - len(text.lstrip()) + 1)
+        return indicator(value)
     return value
+
+
+def _is_condition(value) -> bool:
+    return isinstance(value, (sp.logic.boolalg.Boolean, sp.core.relational.Relational)) \
+        and not isinstance(value, sp.Expr)
+
+
+def indicator(cond) -> sp.Expr:
+    """1 where condition `cond` holds and 0 where it does not, as a sympy expression
+    (a Piecewise, which compiles to numpy's select; derivatives are 0 almost everywhere)."""
+    if cond is sp.true or cond == sp.true:
+        return sp.Integer(1)
+    if cond is sp.false or cond == sp.false:
+        return sp.Integer(0)
+    return sp.Piecewise((sp.Integer(1), cond), (sp.Integer(0), True))
+
+
+def _parenthesised(text: str) -> bool:
+    """Whether the whole of `text` is one pair of parentheses and what they hold."""
+    t = text.strip()
+    if not t.startswith("("):
+        return False
+    depth = 0
+    for i, ch in enumerate(t):
+        depth += ch == "("
+        depth -= ch == ")"
+        if depth == 0:
+            return i == len(t) - 1
+    return False
 
 
 def _read(text: str) -> tuple[ast.Expression, list[int]]:

@@ -5,6 +5,13 @@ normalising constant, so that evidence computed from it is right, the conditions
 under which that formula holds (parameter constraints and the support), and,
 where a closed form or a standard special function exists, the log survival
 function ``log P(X > x)`` used for right-censored rows.
+
+The log-densities are written in forms that keep their digits over the whole
+parameter range (shapes, counts and concentrations up to 1e300, scales down to
+1e-300, probabilities at 0 and 1): see engine/logspace.py. Where the textbook form
+splits into sums of data times parameters (so that sums over rows reduce to
+sufficient statistics), the family gives it too, as `Term.separable`; the
+reduction uses it and is checked against the stable form row by row.
 """
 
 from __future__ import annotations
@@ -27,10 +34,14 @@ class Term:
     """A log-density term and the conditions under which it holds.
 
     Where a condition is false the density is zero (log-density ``-inf``).
+    `expr` is the form to evaluate; it keeps its digits at extreme arguments.
     """
 
     expr: sp.Expr
     conds: tuple[sp.Basic, ...] = ()
+    #: The same log-density as a sum of separable pieces (the textbook form), for
+    #: sufficient statistics; None where `expr` is that already or none exists.
+    separable: sp.Expr | None = None
 
 
 @dataclass(frozen=True)
@@ -86,7 +97,7 @@ def _pos(*a):
 
 def _normal(x, m, s):
     z = (x - m) / s
-    return Term(-sp.log(s) - LOG2PI / 2 - z**2 / 2, _pos(s))
+    return Term(-sp.log(s) - LOG2PI / 2 - S.sqr(z) / 2, _pos(s), -sp.log(s) - LOG2PI / 2 - z**2 / 2)
 
 
 def _normal_sf(x, m, s):
@@ -95,18 +106,18 @@ def _normal_sf(x, m, s):
 
 def _student_t(x, nu, m, s):
     z = (x - m) / s
-    expr = (S.gammaln((nu + 1) / 2) - S.gammaln(nu / 2) - sp.log(nu * sp.pi) / 2 - sp.log(s)
-            - (nu + 1) / 2 * S.log1p(z**2 / nu))
+    expr = (S.lrising(nu / 2, sp.Rational(1, 2)) - sp.log(nu * sp.pi) / 2 - sp.log(s)
+            - (nu + 1) / 2 * S.log1p_sq(z / sp.sqrt(nu)))
     return Term(expr, _pos(nu, s))
 
 
 def _student_t_sf(x, nu, m, s):
-    return Term(sp.log(S.stdtr(nu, -(x - m) / s)), _pos(nu, s))
+    return Term(S.log_t_sf(nu, (x - m) / s), _pos(nu, s))
 
 
 def _cauchy(x, m, s):
     z = (x - m) / s
-    return Term(-sp.log(sp.pi * s) - S.log1p(z**2), _pos(s))
+    return Term(-sp.log(sp.pi * s) - S.log1p_sq(z), _pos(s))
 
 
 def _cauchy_sf(x, m, s):
@@ -117,7 +128,8 @@ def _cauchy_sf(x, m, s):
 
 def _lognormal(x, m, s):
     z = (sp.log(x) - m) / s
-    return Term(-sp.log(x) - sp.log(s) - LOG2PI / 2 - z**2 / 2, _pos(s) + (sp.Gt(x, 0),))
+    head = -sp.log(x) - sp.log(s) - LOG2PI / 2
+    return Term(head - S.sqr(z) / 2, _pos(s) + (sp.Gt(x, 0),), head - z**2 / 2)
 
 
 def _lognormal_sf(x, m, s):
@@ -134,28 +146,31 @@ def _exponential_sf(x, r):
 
 
 def _gamma(x, a, b):
-    expr = a * sp.log(b) - S.gammaln(a) + S.xlogy(a - 1, x) - b * x
-    return Term(expr, _pos(a, b) + (sp.Ge(x, 0),))
+    # b (bx)^(a-1) e^(-bx) / Gamma(a): a Poisson-type term in a - 1 at "rate" bx
+    textbook = a * sp.log(b) - S.gammaln(a) + S.xlogy(a - 1, x) - b * x
+    return Term(sp.log(b) + S.log_gamma_pdf(a, b * x), _pos(a, b) + (sp.Ge(x, 0),), textbook)
 
 
 def _gamma_sf(x, a, b):
-    return Term(sp.log(S.gammaincc(a, b * x)), _pos(a, b) + (sp.Ge(x, 0),))
+    return Term(S.log_gammaincc(a, b * x), _pos(a, b) + (sp.Ge(x, 0),))
 
 
 def _inv_gamma(x, a, s):
-    expr = a * sp.log(s) - S.gammaln(a) - (a + 1) * sp.log(x) - s / x
-    return Term(expr, _pos(a, s) + (sp.Gt(x, 0),))
+    # with y = s/x: y^(a+1) e^(-y) / (s Gamma(a)), the gamma(a, 1) density at y times y^2/s
+    textbook = a * sp.log(s) - S.gammaln(a) - (a + 1) * sp.log(x) - s / x
+    return Term(S.log_gamma_pdf(a, s / x) + sp.log(s) - 2 * sp.log(x),
+                _pos(a, s) + (sp.Gt(x, 0),), textbook)
 
 
 def _inv_gamma_sf(x, a, s):
-    # P(X > 0) = 1: at x = 0, s/x = inf and gammainc(a, inf) = 1
-    return Term(sp.log(S.gammainc(a, s / x)), _pos(a, s) + (sp.Ge(x, 0),))
+    # P(X > 0) = 1: at x = 0, s/x = inf and P(a, inf) = 1
+    return Term(S.log_gammainc(a, s / x), _pos(a, s) + (sp.Ge(x, 0),))
 
 
 def _beta(x, a, b):
-    expr = (S.xlogy(a - 1, x) + S.xlog1py(b - 1, -x)
-            - (S.gammaln(a) + S.gammaln(b) - S.gammaln(a + b)))
-    return Term(expr, _pos(a, b) + (sp.Ge(x, 0), sp.Le(x, 1)))
+    textbook = (S.xlogy(a - 1, x) + S.xlog1py(b - 1, -x)
+                - (S.gammaln(a) + S.gammaln(b) - S.gammaln(a + b)))
+    return Term(S.beta_lpdf(x, a, b), _pos(a, b) + (sp.Ge(x, 0), sp.Le(x, 1)), textbook)
 
 
 def _beta_sf(x, a, b):
@@ -180,7 +195,8 @@ def _weibull_sf(x, k, lam):
 
 
 def _half_normal(x, s):
-    return Term(sp.log(2) - sp.log(s) - LOG2PI / 2 - x**2 / (2 * s**2), _pos(s) + (sp.Ge(x, 0),))
+    head = sp.log(2) - sp.log(s) - LOG2PI / 2
+    return Term(head - S.sqr(x / s) / 2, _pos(s) + (sp.Ge(x, 0),), head - x**2 / (2 * s**2))
 
 
 def _half_normal_sf(x, s):
@@ -188,7 +204,7 @@ def _half_normal_sf(x, s):
 
 
 def _half_cauchy(x, s):
-    return Term(sp.log(2) - sp.log(sp.pi * s) - S.log1p((x / s)**2), _pos(s) + (sp.Ge(x, 0),))
+    return Term(sp.log(2) - sp.log(sp.pi * s) - S.log1p_sq(x / s), _pos(s) + (sp.Ge(x, 0),))
 
 
 def _half_cauchy_sf(x, s):
@@ -239,28 +255,33 @@ def _lchoose(n, k):
 
 
 def _binomial(x, n, p):
-    expr = _lchoose(n, x) + S.xlogy(x, p) + S.xlog1py(n - x, -p)
-    return Term(expr, (sp.Ge(n, 0), _int(n), sp.Ge(p, 0), sp.Le(p, 1),
-                       sp.Ge(x, 0), sp.Le(x, n), _int(x)))
+    textbook = _lchoose(n, x) + S.xlogy(x, p) + S.xlog1py(n - x, -p)
+    # at large n, three Poisson probabilities (of x at rate np, of n - x at rate n(1-p),
+    # over that of n at rate n): no large terms cancel
+    return Term(S.binom_lpmf(x, n, p), (sp.Ge(n, 0), _int(n), sp.Ge(p, 0), sp.Le(p, 1),
+                                   sp.Ge(x, 0), sp.Le(x, n), _int(x)), textbook)
 
 
 def _binomial_sf(x, n, p):
-    return Term(sp.log(S.bdtrc(x, n, p)), (sp.Ge(n, 0), _int(n), sp.Ge(p, 0), sp.Le(p, 1),
-                                           sp.Ge(x, 0), sp.Le(x, n), _int(x)))
+    return Term(S.log_bdtrc(x, n, p), (sp.Ge(n, 0), _int(n), sp.Ge(p, 0), sp.Le(p, 1),
+                                       sp.Ge(x, 0), sp.Le(x, n), _int(x)))
 
 
 def _poisson(x, r):
-    return Term(S.xlogy(x, r) - r - S.gammaln(x + 1), (sp.Ge(r, 0), sp.Ge(x, 0), _int(x)))
+    textbook = S.xlogy(x, r) - r - S.gammaln(x + 1)
+    return Term(S.log_gamma_pdf(x + 1, r), (sp.Ge(r, 0), sp.Ge(x, 0), _int(x)), textbook)
 
 
 def _poisson_sf(x, r):
-    return Term(sp.log(S.pdtrc(x, r)), (sp.Ge(r, 0), sp.Ge(x, 0), _int(x)))
+    # P(X > x) = P(x + 1, r), the regularised lower incomplete gamma
+    return Term(S.log_gammainc(x + 1, r), (sp.Ge(r, 0), sp.Ge(x, 0), _int(x)))
 
 
 def _neg_binomial(x, r, p):
-    expr = (S.gammaln(x + r) - S.gammaln(r) - S.gammaln(x + 1) + r * sp.log(p)
-            + S.xlog1py(x, -p))
-    return Term(expr, (sp.Gt(r, 0), sp.Gt(p, 0), sp.Le(p, 1), sp.Ge(x, 0), _int(x)))
+    textbook = (S.gammaln(x + r) - S.gammaln(r) - S.gammaln(x + 1) + r * sp.log(p)
+                + S.xlog1py(x, -p))
+    return Term(S.nbinom_lpmf(x, r, p), (sp.Gt(r, 0), sp.Gt(p, 0), sp.Le(p, 1), sp.Ge(x, 0),
+                                         _int(x)), textbook)
 
 
 def _neg_binomial_sf(x, r, p):
@@ -268,18 +289,31 @@ def _neg_binomial_sf(x, r, p):
                                             sp.Ge(x, 0), _int(x)))
 
 
-def _lbeta(a, b):
-    return S.gammaln(a) + S.gammaln(b) - S.gammaln(a + b)
-
-
 def _beta_binomial(x, n, a, b):
-    expr = _lchoose(n, x) + _lbeta(x + a, n - x + b) - _lbeta(a, b)
-    return Term(expr, (sp.Ge(n, 0), _int(n)) + _pos(a, b) + (sp.Ge(x, 0), sp.Le(x, n), _int(x)))
+    # lchoose(n, x) + lbeta(x + a, n - x + b) - lbeta(a, b), in a form that keeps its
+    # digits at large n and at large concentration a + b (where the limit is binomial)
+    return Term(S.bbinom_lpmf(x, n, a, b),
+                (sp.Ge(n, 0), _int(n)) + _pos(a, b) + (sp.Ge(x, 0), sp.Le(x, n), _int(x)))
 
 
 def _beta_binomial_sf(x, n, a, b):
-    return Term(sp.log(S.bbinom_sf(x, n, a, b)),
+    return Term(S.log_bbinom_sf(x, n, a, b),
                 (sp.Ge(n, 0), _int(n)) + _pos(a, b) + (sp.Ge(x, 0), sp.Le(x, n), _int(x)))
+
+
+def _hypergeometric_conds(x, N, K, n):
+    # N >= n + K - x (the failures drawn fit among the N - K failures) is written with
+    # the population size alone on one side, so that a parameter N meets the data once
+    return (sp.Ge(N, 0), _int(N), sp.Ge(K, 0), _int(K), sp.Ge(n, 0), _int(n), sp.Le(K, N),
+            sp.Le(n, N), sp.Ge(x, 0), _int(x), sp.Le(x, K), sp.Le(x, n), sp.Ge(N, n + K - x))
+
+
+def _hypergeometric(x, N, K, n):
+    return Term(S.hypergeom_lpmf(x, N, K, n), _hypergeometric_conds(x, N, K, n))
+
+
+def _hypergeometric_sf(x, N, K, n):
+    return Term(S.log_hypergeom_sf(x, N, K, n), _hypergeometric_conds(x, N, K, n))
 
 
 def _geometric(x, p):
@@ -345,6 +379,14 @@ FAMILIES: dict[str, Family] = {f.name: f for f in [
        "beta_binomial(n, a, b): binomial(n, p) with p ~ beta(a, b)"),
     _F("geometric", ["p"], True, "x in 1, 2, 3, ...", ["0 < p <= 1"], _geometric, _geometric_sf,
        lambda p: st.geom(p), "geometric(p): trials up to and including the first success"),
+    # scipy.stats.hypergeom(M, n, N) names the population M, its successes n and the
+    # draws N: our (N, K, n) is its (M, n, N), in that order
+    _F("hypergeometric", ["N", "K", "n"], True, "x in max(0, n-N+K)..min(n, K)",
+       ["N a whole number >= 0", "K a whole number, 0 <= K <= N",
+        "n a whole number, 0 <= n <= N"],
+       _hypergeometric, _hypergeometric_sf, lambda N, K, n: st.hypergeom(N, K, n),
+       "hypergeometric(N, K, n): successes in n draws without replacement from N items "
+       "of which K are successes"),
 ]}
 
 

@@ -304,7 +304,7 @@ _MODULES = [S.NAMESPACE, "scipy", "numpy"]
 def _lambdify(args: Sequence[sp.Symbol], expr: sp.Basic) -> Callable:
     # the generated code holds only placeholder names (_t0, _c0, _s0) and numbers:
     # no text a user typed reaches it
-    return sp.lambdify(list(args), expr, modules=_MODULES, cse=True)
+    return sp.lambdify(list(args), expr, modules=_MODULES, cse=True, printer=S.code_printer())
 
 
 def _placeholders(prefix: str, n: int) -> list[sp.Symbol]:
@@ -407,19 +407,31 @@ class ReducedTerm:
     conds: Callable | None
     fallback: RowTerm      # the same sum done row by row, to verify against
     defs: tuple[StatDef, ...] = ()
+    #: Where `fallback` is a stable form (a family's): the sum of the magnitudes of the
+    #: reduced form's terms, same arguments as `fn`. Points where the reduced sum would
+    #: lose more than about `tol` to cancellation are summed row by row instead.
+    magnitude: Callable | None = None
+    tol: float = 1e-8
 
     def restat(self, data: dict[str, np.ndarray], rows: int) -> "ReducedTerm":
         """The same term over other rows (a dict of column arrays of length `rows`).
 
         Raises ValueError where a statistic does not apply (then evaluate those rows
         with a fresh compile instead)."""
-        return replace(self, stats=tuple(d.value(data, rows) for d in self.defs))
+        # the row-wise form holds the original rows: it cannot stand in for these
+        return replace(self, stats=tuple(d.value(data, rows) for d in self.defs),
+                       magnitude=None)
 
     def __call__(self, theta: Sequence[np.ndarray]) -> np.ndarray:
         n = theta[0].shape[0] if theta else 1
         th = [theta[i] for i in self.index]
         with np.errstate(all="ignore"):
             out = _as_array(self.fn(*th, *self.stats), n).copy()
+            if self.magnitude is not None:
+                mag = _as_array(self.magnitude(*th, *self.stats), n)
+                lost = ~(mag * 2.2e-16 <= self.tol)
+                if lost.any():
+                    out[lost] = self.fallback([t[lost] for t in theta])
             if self.conds is not None:
                 ok = _as_array(self.conds(*th, *self.stats), n, bool)
                 out[~ok] = -np.inf
@@ -980,10 +992,16 @@ def _separate_cond(c, sep: _Separation) -> None:
     sep.conds.append(c.func(s, rhs) if ld else c.func(lhs, s))
 
 
-def _sum_terms(expr, conds, params, csyms, colvals, *, reduce: bool = True) -> list[Term]:
-    """The terms of sum_rows expr (with its row conditions)."""
+def _sum_terms(expr, conds, params, csyms, colvals, *, reduce: bool = True,
+               separable=None) -> list[Term]:
+    """The terms of sum_rows expr (with its row conditions). `separable` is the same
+    sum written in separable pieces (a family's textbook form), reduced in place of
+    `expr` when it reduces whole; `expr` (the stable form) is what is checked against."""
     psyms = [p.symbol for p in params]
-    red = _reduce_sum(expr, conds, psyms, csyms, colvals) if reduce else None
+    red = _reduce_sum(expr if separable is None else separable, conds, psyms, csyms,
+                      colvals) if reduce else None
+    if red is not None and separable is not None and red.remainder != 0:
+        red = None  # a stable form is not split into reduced and row-wise pieces
     if red is None:
         return [_row_term(expr, conds, psyms, csyms, colvals)]
     fallback = _row_term(expr - red.remainder, [c for c in conds if c not in red.remainder_conds],
@@ -1001,7 +1019,14 @@ def _sum_terms(expr, conds, params, csyms, colvals, *, reduce: bool = True) -> l
         cp = _placeholders("c", len(ucols))
         stat_fns.append(StatDef(r.kind, _lambdify(cp, r.expr.xreplace(
             {csyms[j]: cp[k] for k, j in enumerate(ucols)})), tuple(csyms[j].name for j in ucols)))
-    out: list[Term] = [ReducedTerm(fn, tuple(used), red.stats, cfn, fallback, tuple(stat_fns))]
+    mfn = None
+    if separable is not None:
+        # the reduced textbook form cancels at extreme parameters (a shape of 1e15):
+        # its terms' magnitudes say where, and there the stable form is summed instead
+        mag = sp.Add(*[sp.Abs(t) for t in sp.Add.make_args(red.total)])
+        mfn = _lambdify(tp + ssyms, mag.xreplace(sub))
+    out: list[Term] = [ReducedTerm(fn, tuple(used), red.stats, cfn, fallback, tuple(stat_fns),
+                                   mfn, 1e-8 * max(1.0, fallback.rows ** 0.5))]
     if red.remainder != 0 or red.remainder_conds:
         out.append(_row_term(red.remainder, list(red.remainder_conds), psyms, csyms, colvals))
     return out
@@ -1299,7 +1324,8 @@ def _piece_terms(piece: _Piece, form: _LikelihoodForm, model: Model, data: DataS
             raise ModelError(f"{form.where}: `{f.name if f else 'term'}` needs "
                              f"{'; '.join(f.constraints) if f else str(c)}")
     _check_data_conds(conds.data, csyms, colvals, form.where, f, cols)
-    terms = _sum_terms(t.expr, conds.mixed, params, csyms, colvals, reduce=reduce)
+    terms = _sum_terms(t.expr, conds.mixed, params, csyms, colvals, reduce=reduce,
+                       separable=t.separable)
     rc = tuple(n for n, cs in zip(cols, csyms) if cs in t.expr.free_symbols)
     got.symbolic.append(SymbolicTerm(t.expr, rc, tuple(colvals[cols.index(n)] for n in rc)))
     if conds.params:

@@ -201,12 +201,15 @@ def test_condition_errors(text, pattern):
 
 
 @pytest.mark.parametrize("text, pattern", [
-    ("x < 1", r"a comparison belongs in a condition, not a formula at column 1"),
-    ("x > 0 and y > 0", r"`and` / `or` belong in a condition, not a formula at column 1"),
-    ("not x", r"`not` belongs in a condition, not a formula at column 1"),
-    ("(x < 1) + 1", r"comparison belongs in a condition"),
+    # a bare condition where a number is expected; in parentheses it is a 0/1
+    # indicator (tests/test_indicators.py)
+    ("x < 1", r"`x < 1` is a condition, not a number; for 1 where it holds and 0 where "
+              r"not, put it in parentheses: \(x < 1\) at column 1"),
+    ("x > 0 and y > 0", r"`x > 0 and y > 0` is a condition, not a number.*"
+                        r"\(x > 0 and y > 0\) at column 1"),
+    ("not x", r"`x` is a number, not a condition \(compare it, as in x > 0\) at column 5"),
 ])
-def test_conditions_are_refused_in_formulas(text, pattern):
+def test_bare_conditions_are_refused_in_formulas(text, pattern):
     fails(text, pattern)
 
 

@@ -45,6 +45,7 @@ ARGS = {
     "neg_binomial": [(1.0, 0.5), (3.5, 0.2), (20.0, 0.9), (2.0, 1.0)],
     "beta_binomial": [(10.0, 1.0, 1.0), (20.0, 0.5, 3.0), (5.0, 10.0, 2.0)],
     "geometric": [(0.5,), (0.05,), (1.0,)],
+    "hypergeometric": [(20.0, 7.0, 5.0), (50.0, 25.0, 30.0), (1000.0, 30.0, 100.0), (12.0, 12.0, 4.0)],
 }
 
 # family -> constant arguments that break a constraint, and what the message says
@@ -70,6 +71,8 @@ BAD_ARGS = {
     "neg_binomial": ((2, 0), r"`neg_binomial` needs r > 0; 0 < p <= 1; here r = 2, p = 0"),
     "beta_binomial": ((-1, 1, 1), r"`beta_binomial` needs n a whole number >= 0"),
     "geometric": ((1.2,), r"`geometric` needs 0 < p <= 1; here p = 1.2"),
+    "hypergeometric": ((10, 12, 3), r"`hypergeometric` needs N a whole number >= 0; K a whole "
+                                    r"number, 0 <= K <= N; .*here N = 10, K = 12, n = 3"),
 }
 
 
@@ -223,6 +226,7 @@ THROUGH_MODEL = {
     "neg_binomial": (1, "unit", [0.05, 0.5, 0.95]),
     "beta_binomial": (1, "positive", [0.5, 2.0, 30.0]),
     "geometric": (0, "unit", [0.05, 0.5, 0.95]),
+    "hypergeometric": (0, "int", [20.0, 31.0, 400.0]),
 }
 
 
@@ -235,7 +239,7 @@ def test_likelihood_sum_matches_scipy(name, reduce):
     # draws from the family itself (scipy.stats) as test input, 40 rows
     whole = [int(v) if v == int(v) else v for v in base]  # scipy wants an integer n
     y = np.asarray(f.scipy(*whole).rvs(size=40, random_state=np.random.default_rng(7)), float)
-    theta = make_param("theta", kind)
+    theta = make_param("theta", kind, **({"lo": 0, "hi": 1000} if kind == "int" else {}))
     args = tuple(theta.symbol if i == k else _num(v) for i, v in enumerate(base))
     model, _ = Model().with_param(theta)
     model, _ = model.with_likelihood(Likelihood("y", name, args))

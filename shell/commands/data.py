@@ -41,7 +41,9 @@ def split_values(text: str) -> list[str]:
 
 @command("data", usage=DATA_USAGE, kind="change", group="model", complete=_complete_data,
          help="""Gives data. `data NAME = v1, v2, ...` types a column (commas or blanks
-         between values). `data load FILE.csv` reads a CSV file with a header row of column
+         between values); a value may be a range LO:HI or LO:HI:STEP, both ends included
+         and written without blanks (`data year = 1851:1962`, `data dose = 0:100:5`,
+         `data x = 1, 2, 5:8`). `data load FILE.csv` reads a CSV file with a header row of column
          names and numeric cells; `as PREFIX` names its columns PREFIX_name. A relative
          path in a session file is read from the session file's folder. The SHA-256 of
          every file read goes into saved sessions, so that a replay can tell whether it
