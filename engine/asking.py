@@ -20,7 +20,7 @@ from .expr import parse
 from .posterior import Interval
 from .predict import Predictive, predictive, sample_size
 from .refine import axis_count
-from .results import (Answer, Joint, Needed, Number, Point, Predicted, Range,
+from .results import (Answer, Joint, Needed, NoMoment, Number, Point, Predicted, Range,
                       SampleSizeOptions, Summary, SummaryRow)
 from .runs import fresh
 from .state import Outcome, Prediction, State
@@ -148,10 +148,27 @@ def moment(s: State, kind: str, text: str, *, budget_seconds: float) -> Outcome:
         return _answer(got, kind, f"{kind} of a new {pr.name}",
                        Number(value, scale=pv.sd, predictive=pv))
     got = fresh(s, budget_seconds=budget_seconds)
-    mo = questions.moments(got.result.posterior, e)
+    post = got.result.posterior
+    mo = questions.moments(post, e)
     est = mo.mean if kind == "mean" else mo.sd
+    if est.method == "absent":
+        return _answer(got, kind, f"{kind} of {text.strip()}", _no_moment(post, e, kind))
     return _answer(got, kind, f"{kind} of {text.strip()}",
                    Number(float(est.value), est.error, scale=mo.sd.value))
+
+
+def _no_moment(post, e: sp.Basic, kind: str) -> NoMoment:
+    """Why the `kind` of `e` does not exist, with its median and 95% interval."""
+    ks = [(x.name, post.tails(x.name).exponent()) for x in e.free_symbols
+          if x.name in post.marginals]
+    ks = [(n, k) for n, k in ks if k is not None]
+    name, k = min(ks, key=lambda t: t[1]) if ks else ("", math.nan)
+    reason = (f"tails too heavy: the density of `{name}` falls as |{name}|^-{k:.2g}"
+              if ks else "tails too heavy")
+    if not isinstance(e, sp.Symbol):
+        return NoMoment(kind, reason)
+    iv = post.interval(e.name, 0.95, "central")
+    return NoMoment(kind, reason, post.quantile(e.name, 0.5), iv.lo, iv.hi)
 
 
 def quantile(s: State, text: str, q: float, *, budget_seconds: float) -> Outcome:

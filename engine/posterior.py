@@ -178,6 +178,19 @@ class Marginal:
             v = float(np.dot(self.mass, (self.values - m) ** 2))
         return math.sqrt(v) if v >= 0 else math.nan
 
+    def tails(self) -> "Tails":
+        """Power-law exponents of the density at the ends that reach to infinity."""
+        if self.discrete or len(self.values) < 9:
+            return Tails(None, None)
+        f = self.density()
+        try:
+            c = self.quantile(0.5)
+        except (ComputeError, ValueError):
+            return Tails(None, None)
+        lo = _power_tail(c - self.values, f) if self.axis.dom_lo == -math.inf else None
+        hi = _power_tail(self.values - c, f) if self.axis.dom_hi == math.inf else None
+        return Tails(lo, hi)
+
     def density(self) -> np.ndarray:
         """Density in the parameter's units at the nodes (the pmf if discrete)."""
         if self.discrete:
@@ -290,15 +303,93 @@ class Marginal:
         def mass(t):
             return sum(float(self.cdf_u(b) - self.cdf_u(a)) for a, b in region(t))
 
-        top = float(fm.max())
-        if mass(0.0) < level:
-            t = 0.0
-        else:
-            t = optimize.brentq(lambda t: mass(t) - level, 0.0, top, xtol=1e-15 * top,
-                                rtol=1e-13, maxiter=300)
-        pieces = region(t)
-        return tuple((float(ax.to_value(np.array([a]))[0]), float(ax.to_value(np.array([b]))[0]))
-                     for a, b in pieces)
+        t = _threshold(mass, level, fnat, mesh, np.diff(self.cdf_u(mesh)))
+        pieces = [(float(ax.to_value(np.array([a]))[0]), float(ax.to_value(np.array([b]))[0]))
+                  for a, b in region(t)]
+        # a density that rises toward a grid end that is not the domain's edge: the
+        # region runs on to the edge (one-sided HPD, as for a mode at p = 0); the mass
+        # between is beyond the grid, below its error
+        if pieces and pieces[0][0] <= ax.lo and math.isfinite(ax.dom_lo):
+            pieces[0] = (float(ax.dom_lo), pieces[0][1])
+        if pieces and pieces[-1][1] >= ax.hi and math.isfinite(ax.dom_hi):
+            pieces[-1] = (pieces[-1][0], float(ax.dom_hi))
+        return tuple(pieces)
+
+
+def _threshold(mass, level: float, fnat, mesh: np.ndarray, cell_mass: np.ndarray) -> float:
+    """The density `t` whose region {f > t} holds `level`: bracketed by ranking the
+    mesh cells by density (so that a density unbounded at an edge, many decades
+    above the threshold, does not swamp the search), then solved."""
+    fmid = fnat(0.5 * (mesh[1:] + mesh[:-1]))
+    order = np.argsort(-fmid, kind="stable")
+    c = np.cumsum(cell_mass[order])
+    k = int(np.searchsorted(c, level))
+    if k >= len(c) or mass(0.0) < level:
+        return 0.0
+    n = len(order)
+    for span in (2, 8, 32, 128, n):
+        hi_t = float(fmid[order[max(k - span, 0)]])
+        lo_t = float(fmid[order[min(k + span, n - 1)]]) if k + span < n else 0.0
+        if mass(lo_t) >= level >= mass(hi_t):
+            break
+    else:
+        lo_t, hi_t = 0.0, float(fmid.max())
+    if not hi_t > lo_t:
+        return lo_t
+    return optimize.brentq(lambda t: mass(t) - level, lo_t, hi_t, xtol=1e-14 * hi_t,
+                           rtol=1e-13, maxiter=300)
+
+
+#: How much faster than over the stretch before it the density may fall over the
+#: outer half of a tail and still be called a power law (a power law: 1; an
+#: exponential tail: 2; a normal one: 4).
+POWER_LAW_RATIO = 1.7
+
+
+@dataclass(frozen=True)
+class Tails:
+    """The tails of a marginal: the exponent `k` of a density falling as
+    ``|x|^-k`` at each end that reaches to infinity, or None (a bounded end, or
+    one that falls faster than any power)."""
+
+    lo: float | None
+    hi: float | None
+
+    def exponent(self) -> float | None:
+        """The heavier of the two tails' exponents (None: neither is a power law)."""
+        ks = [k for k in (self.lo, self.hi) if k is not None]
+        return min(ks) if ks else None
+
+    def moment_exists(self, power: int) -> bool:
+        """Whether ``E|x|^power`` is finite: every power-law tail has k > power + 1."""
+        k = self.exponent()
+        return k is None or k > power + 1 + 1e-9
+
+
+def _power_tail(d: np.ndarray, f: np.ndarray) -> float | None:
+    """The exponent k of a density `f` falling as ``d^-k`` at the far end of the
+    nodes at distances `d` from the median, or None when it falls faster.
+
+    The log-log slope of the density over the outer half of the tail (from d/2 to
+    the last node, at distance d) is compared with the slope over the stretch
+    before it (d/4 to d/2): a power law has one slope, an exponential or normal
+    tail steepens (twice and four times as steep); the outer slope is the exponent
+    (for Student-t tails it is slightly below the asymptotic one)."""
+    side = np.flatnonzero(d > 0)
+    if len(side) < 5:
+        return None
+    e = side[np.argmax(d[side])]
+    de = float(d[e])
+    j2 = side[np.argmin(np.abs(d[side] - de / 2))]
+    j4 = side[np.argmin(np.abs(d[side] - de / 4))]
+    ds, fs = (float(d[j4]), float(d[j2]), de), (float(f[j4]), float(f[j2]), float(f[e]))
+    if not (0 < ds[0] < ds[1] < ds[2]) or min(fs) <= 0 or not all(map(math.isfinite, fs)):
+        return None
+    outer = -math.log(fs[2] / fs[1]) / math.log(ds[2] / ds[1])
+    inner = -math.log(fs[1] / fs[0]) / math.log(ds[1] / ds[0])
+    if not outer > 0 or not inner > 0 or outer > POWER_LAW_RATIO * inner:
+        return None
+    return outer
 
 
 def _cross(f, t, a, b):
@@ -440,6 +531,11 @@ class Posterior:
         if miss <= 0 or m.discrete:
             return 0.0
         eps = min(1e-4, q / 2, (1 - q) / 2)
+        if not eps > 0:
+            # a quantile at 0 or 1: an end of the support, which added mass does
+            # not move (an edge of the domain, or the grid's end, whose own error
+            # is the missing mass itself)
+            return 0.0
         try:
             slope = (m.quantile(q + eps) - m.quantile(q - eps)) / (2 * eps)
         except (ComputeError, ValueError):
@@ -462,11 +558,51 @@ class Posterior:
         exact = all(a.discrete for a in self.grid.axes)
         return combine(vals[0], v1, v2, order=ax.order or 2, exact=exact)
 
+    def tails(self, name: str) -> Tails:
+        """The power-law tails of the marginal of `name` (see `Marginal.tails`)."""
+        return self.marginal(name).tails()
+
     def param_mean(self, name: str) -> Estimate:
-        return self._estimate(name, lambda m: m.mean, truncation=self._span(name))
+        """The posterior mean; ``nan`` with method ``absent`` where it does not exist
+        (a tail falling as |x|^-k with k <= 2)."""
+        if not self.tails(name).moment_exists(1):
+            return Estimate(math.nan, None, "absent")
+        return self._estimate(name, lambda m: m.mean,
+                              truncation=self._span(name) + self._tail_moment(name, 1))
 
     def param_sd(self, name: str) -> Estimate:
-        return self._estimate(name, lambda m: m.sd, truncation=self._span(name))
+        """The posterior sd; ``nan`` with method ``absent`` where the variance does not
+        exist (a tail falling as |x|^-k with k <= 3)."""
+        if not self.tails(name).moment_exists(2):
+            return Estimate(math.nan, None, "absent")
+        m = self.marginals[name]
+        var_cut = self._tail_moment(name, 2)
+        sd = m.sd
+        cut = var_cut / (2 * sd) if sd > 0 and var_cut < sd * sd else math.sqrt(var_cut)
+        return self._estimate(name, lambda m: m.sd, truncation=self._span(name) + cut)
+
+    def _tail_moment(self, name: str, power: int) -> float:
+        """What the mass beyond each end of the grid adds to the `power`-th central
+        moment of `name`: that mass times distance^power, times (k-1)/(k-1-power)
+        for a tail falling as |x|^-k (the integral of the power law beyond), or 2
+        for a tail that falls faster."""
+        a = self.grid.axis(name)
+        if a.discrete:
+            return 0.0
+        m = self.marginals[name]
+        tails = m.tails()
+        edge = self.diagnostics.edge_mass.get(name, (0.0, 0.0))
+        mean = m.mean
+        total = 0.0
+        for k, em, node, end, at_edge in (
+                (tails.lo, edge[0], m.mass[0], a.lo, a.scale == "linear" and a.lo <= a.dom_lo),
+                (tails.hi, edge[1], m.mass[-1], a.hi, a.scale == "linear" and a.hi >= a.dom_hi)):
+            miss = max(float(em) - float(node), 0.0)
+            if at_edge or miss <= 0:
+                continue
+            factor = (k - 1) / (k - 1 - power) if k is not None and k > power + 1 else 2.0
+            total += miss * abs(end - mean) ** power * factor
+        return total
 
     def quantile(self, name: str, q: float) -> Estimate:
         return self._estimate(name, lambda m: m.quantile(q),

@@ -149,6 +149,15 @@ def moments(post: Posterior, expr: sp.Expr) -> Moments:
     if e.is_number:
         # a constant: its own mean, and sd 0
         return Moments(Estimate(_constant(e), 0.0, "exact"), Estimate(0.0, 0.0, "exact"))
+    absent = _absent_moments(post, e)
+    if absent is not None:
+        return absent
+    return moments_on_grid(post, e, fn)
+
+
+def moments_on_grid(post: Posterior, e: sp.Expr, fn: ParamFunction | None = None) -> Moments:
+    """Mean and sd of `e` (lets expanded) summed over the grid's points."""
+    fn = fn or param_function(e, post.compiled.params)
     L = post.levels + 1
     s0 = np.zeros(L)
     s1 = np.zeros(L)
@@ -184,6 +193,29 @@ def moments(post: Posterior, expr: sp.Expr) -> Moments:
     span = (vmax - vmin) * post.diagnostics.missing if vmax > vmin else 0.0
     return Moments(_truncated(_levels_estimate(post, means), span),
                    _truncated(_levels_estimate(post, sds), span))
+
+
+def _absent_moments(post: Posterior, e: sp.Expr) -> Moments | None:
+    """Mean and sd of a polynomial in parameters whose tails fall as |x|^-k: the
+    moment of degree r exists only where every such k > r + 1; None when all exist
+    (or the expression is not a polynomial, where the sums decide)."""
+    gone = {1: False, 2: False}
+    for x in e.free_symbols:
+        if x.name not in post.marginals:
+            continue
+        k = post.tails(x.name).exponent()
+        if k is None:
+            continue
+        try:
+            deg = sp.Poly(e, x).degree()
+        except sp.PolynomialError:
+            continue
+        for r in gone:
+            gone[r] = gone[r] or k <= r * deg + 1 + 1e-9
+    if not any(gone.values()):
+        return None
+    none = Estimate(math.nan, None, "absent")
+    return Moments(none if gone[1] else moments_on_grid(post, e).mean, none)
 
 
 # ---------------------------------------------------------------------------
@@ -622,8 +654,10 @@ def distribution(post: Posterior, expr: sp.Expr, *, bins: int = 60) -> Distribut
     mo = moments(post, expr)
     qs = {q: quantile(post, expr, q) for q in (0.025, 0.5, 0.975)}
     fn = _compile(post, expr).fn
-    lo = qs[0.025].value - 2 * mo.sd.value
-    hi = qs[0.975].value + 2 * mo.sd.value
+    # beyond the 95% interval by two sds, or by its width where no sd exists
+    pad = 2 * mo.sd.value if math.isfinite(mo.sd.value) else qs[0.975].value - qs[0.025].value
+    lo = qs[0.025].value - pad
+    hi = qs[0.975].value + pad
     if not hi > lo:
         hi = lo + 1.0
     edges = np.linspace(lo, hi, bins + 1)

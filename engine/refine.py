@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import math
 import warnings
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, replace
 from typing import Sequence
 
 import numpy as np
@@ -30,6 +30,13 @@ CHECK_POINTS = 200_000
 AUTO_BUDGET = 1 << 22
 #: Nodes per curvature sd that `grid auto` aims for on every continuous axis.
 PER_SD = 6.0
+#: Widenings of one end after which `grid auto` reads the tail's power law.
+HEAVY_MOVES = 6
+#: A density falling as |x|^-k is proper (heavy-tailed) when k > 1 + this margin.
+HEAVY_MARGIN = 0.05
+#: The most nodes a heavy-tailed axis grows to (its tails are cut there, and the
+#: mass beyond enters every error estimate).
+HEAVY_POINTS = 100_001
 
 
 @dataclass(frozen=True)
@@ -424,9 +431,14 @@ class _Widening:
     widenings : int
         Passes that widened some end.
     improper : tuple of str
-        Axes whose ends kept widening (12 times or more).
+        Axes whose ends kept widening (12 times or more) with no decay of a proper
+        density.
     converged : bool
         Whether the passes stopped because no end needed widening.
+    heavy : dict of str to float
+        Axes with power-law tails (density ~ |x|^-k, k > 1: proper, but too heavy
+        to hold all but `per_end` within a grid that resolves the mode), with k;
+        their widening stopped at `HEAVY_POINTS` nodes per curvature sd / `PER_SD`.
     """
 
     box: _Box
@@ -434,6 +446,7 @@ class _Widening:
     widenings: int
     improper: tuple[str, ...]
     converged: bool
+    heavy: dict[str, float] = field(default_factory=dict)
 
 
 def _widen(compiled: Compiled, box: _Box, per_end: float, max_widen: int) -> _Widening:
@@ -445,20 +458,31 @@ def _widen(compiled: Compiled, box: _Box, per_end: float, max_widen: int) -> _Wi
     edge: dict[str, tuple[float, float]] = {}
     widenings = 0
     improper: list[str] = []
+    heavy: dict[str, float] = {}
     for _ in range(max_widen + 1):
         grid = build_grid(params, _box_specs(params, box, _check_counts(box, cont, disc)))
-        edge = compute(compiled, grid, pairs=[], store=False).diagnostics.edge_mass
-        wider = _widened(grid, box, edge, per_end, cont)
+        post = compute(compiled, grid, pairs=[], store=False)
+        edge = post.diagnostics.edge_mass
+        for p in cont:
+            if max(box.lo_moves[p.name], box.hi_moves[p.name]) >= HEAVY_MOVES \
+                    and p.name not in heavy and p.name not in improper:
+                k = post.tails(p.name).exponent()
+                if k is not None and k > 1 + HEAVY_MARGIN:
+                    heavy[p.name] = k
+        frozen = {n for n in heavy
+                  if box.span(n) / (box.sd[n] / PER_SD if box.sd[n] > 0 else 1) >= HEAVY_POINTS}
+        wider = _widened(grid, box, edge, per_end, [p for p in cont if p.name not in frozen])
         if wider is None:
-            return _Widening(box, edge, widenings, tuple(improper), True)
+            return _Widening(box, edge, widenings, tuple(improper), True, heavy)
         box = wider
         widenings += 1
         for p in cont:
-            if max(box.lo_moves[p.name], box.hi_moves[p.name]) >= 12 and p.name not in improper:
+            if max(box.lo_moves[p.name], box.hi_moves[p.name]) >= 12 and p.name not in improper \
+                    and p.name not in heavy:
                 improper.append(p.name)
         if improper and widenings >= 14:
             break
-    return _Widening(box, edge, widenings, tuple(improper), False)
+    return _Widening(box, edge, widenings, tuple(improper), False, heavy)
 
 
 def _widened(grid: Grid, box: _Box, edge: dict[str, tuple[float, float]], per_end: float,
@@ -498,6 +522,8 @@ def _sized_counts(compiled: Compiled, wid: _Widening, points: dict[str, int] | N
     for p in cont:
         want = box.span(p.name) / (box.sd[p.name] / PER_SD) if box.sd[p.name] > 0 else npts
         sized[p.name] = npts if p.name in wid.improper else max(npts, int(math.ceil(want)))
+        if p.name in wid.heavy:
+            sized[p.name] = min(sized[p.name], HEAVY_POINTS)
     total = math.prod(sized.values()) * math.prod(len(p.values) for p in disc)
     if total > AUTO_BUDGET:
         shrink = (AUTO_BUDGET / total) ** (1 / max(len(cont), 1))
@@ -545,6 +571,10 @@ def _verdict(compiled: Compiled, fixed: dict[str, float], modes: Sequence[LocalM
     # a flat posterior has no separated modes to report
     mode_vals = _mode_values(compiled, fixed, modes[:1] if improper else modes)
     converged = wid.converged or bool(lim.notes)
+    # heavy tails cut short of the edge-mass target (the rest reached it by widening)
+    heavy = [n for n in wid.heavy if n not in improper and max(wid.edge.get(n, (0, 0))) > per_end]
+    if heavy and not improper:
+        converged = True
     if improper:
         msg = ("mass keeps piling at the edge of " + ", ".join(f"`{n}`" for n in improper) +
                " as the bounds widen: the posterior looks improper")
@@ -552,8 +582,18 @@ def _verdict(compiled: Compiled, fixed: dict[str, float], modes: Sequence[LocalM
         msg = "the edge mass did not fall below the threshold within the widening limit"
     else:
         msg = "; ".join(lim.notes)
+    if heavy:
+        msg = "; ".join(([msg] if msg else []) + [
+            f"`{n}` has heavy tails (density falling as |{n}|^-{wid.heavy[n]:.2g}): the grid "
+            f"cuts them at {_end_text(specs, n)}, and every error estimate includes the mass "
+            "beyond" for n in heavy])
     return AutoGrid(specs, tuple(mode_vals), wid.edge, converged and not improper, improper,
                     msg, wid.widenings)
+
+
+def _end_text(specs: Sequence[AxisSpec], name: str) -> str:
+    x = next(sp for sp in specs if sp.name == name)
+    return f"{x.lo:.3g} and {x.hi:.3g}"
 
 
 def _mode_values(compiled: Compiled, fixed: dict[str, float], modes: Sequence[LocalMode]

@@ -147,7 +147,38 @@ class Needed:
         return (None, self.mc_error)
 
 
-Detail = Number | Range | Point | Predicted | Needed
+@dataclass(frozen=True)
+class NoMoment:
+    """A mean or sd that does not exist (a tail falling as |x|^-k with k <= 2, or
+    <= 3 for the sd), with the median and central 95% interval to read instead.
+
+    Attributes
+    ----------
+    kind : str
+        ``mean`` or ``sd``.
+    reason : str
+        Why, in words (``tails too heavy: ...``).
+    median, lo, hi : Estimate or None
+        The median and the 95% central interval (None for an expression whose
+        quantiles are not asked here).
+    """
+
+    kind: str
+    reason: str
+    median: Estimate | None = None
+    lo: Estimate | None = None
+    hi: Estimate | None = None
+
+    @property
+    def checked(self) -> tuple[float, ...]:
+        return (math.nan,)     # no number to check: `save` writes no check line
+
+    @property
+    def errors(self) -> tuple[float | None, ...]:
+        return (None,)
+
+
+Detail = Number | Range | Point | Predicted | Needed | NoMoment
 
 
 @dataclass(frozen=True)

@@ -81,8 +81,10 @@ def sizing(s: State, compiled: Compiled) -> Sizing:
         auto_used = ag.specs
         specs += [x for x in ag.specs if x.name in missing]
         notes.append("grid auto for " + ", ".join(f"`{m}`" for m in missing))
-        if ag.message:
-            notes.append(ag.message)
+        # heavy tails are told by the posterior's own warnings
+        told = [m for m in ag.message.split("; ") if m and "has heavy tails" not in m]
+        if told:
+            notes.append("; ".join(told))
     return Sizing(build_grid(compiled.params, specs, rule=s.rule), tuple(notes), auto_used)
 
 
@@ -206,6 +208,12 @@ def warnings(post: Posterior) -> tuple[str, ...]:
     for name, (lo_m, hi_m) in post.diagnostics.edge_mass.items():
         ax = post.grid.axis(name)
         p = post.compiled.model.param(name)
+        k = post.tails(name).exponent()
+        if k is not None and max(lo_m, hi_m) > EDGE_WARN:
+            out.append(f"`{name}` has heavy tails (density falling as |{name}|^-{k:.2g}): "
+                       f"{lo_m:.2g} and {hi_m:.2g} of the mass lie at or beyond the ends "
+                       f"{ax.lo:.6g} and {ax.hi:.6g}; every error estimate includes it")
+            continue
         if lo_m > EDGE_WARN and not (ax.scale == "linear" and ax.lo <= p.lo):
             out.append(f"mass at the lower edge of `{name}` ({lo_m:.2g} at {ax.lo:.6g}): "
                        "widen the grid or use `grid auto`")

@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import math
 
-from engine.results import Answer
+from engine.results import Answer, NoMoment
 
 from .. import render as R
 from ..registry import COMMANDS, NOTHING, Slot, command
@@ -26,6 +26,8 @@ def _formula(line: Line, what: str):
 
 
 def _values(a: Answer) -> str:
+    if isinstance(a.detail, NoMoment):
+        return f"none ({a.detail.reason.split(':')[0]})"
     vals = ", ".join(R.num(v) for v in a.values)
     errs = [e for e in a.errors if e is not None]
     if not errs:
@@ -53,7 +55,21 @@ def checkable(line: Line, values, tol: float) -> Shown | None:
     return Shown(line.text, tuple(values), tol)
 
 
+def no_moment_line(d: NoMoment) -> str:
+    """``no mean (tails too heavy: ...); median ..., 95% central interval ...``."""
+    text = f"no {d.kind} ({d.reason})"
+    if d.median is not None:
+        text += (f"; median {R.with_error(d.median.value, d.median.error)}, 95% central "
+                 f"interval {R.num(d.lo.value)} .. {R.num(d.hi.value)}")
+        errs = [e.error for e in (d.lo, d.hi) if e.error is not None]
+        if errs:
+            text += f"  ({R.err(max(errs))})"
+    return text
+
+
 def _asked(line: Line, a: Answer, shown_text: str, **tol) -> Asked:
+    if isinstance(a.detail, NoMoment) and a.now is None:
+        return Asked(a, (f"{shown_text}: {no_moment_line(a.detail)}",), None)
     lines = answer_lines(shown_text, a)
     if a.kind in ("mean", "sd") and not all(math.isfinite(v) for v in a.values):
         lines += (f"note: the {a.kind} does not exist here (the tails are too heavy)",)
@@ -96,13 +112,13 @@ def ask_prob(app, line: Line) -> Asked:
 def ask_mean(app, line: Line) -> Asked:
     seg = _formula(line, "an expression, as in `mean p`")
     a = formula_at(seg, app.ws.mean, seg.text)
-    return _asked(line, a, line.text, scale=a.detail.scale)
+    return _asked(line, a, line.text, scale=getattr(a.detail, "scale", None))
 
 
 def ask_sd(app, line: Line) -> Asked:
     seg = _formula(line, "an expression, as in `sd p`")
     a = formula_at(seg, app.ws.sd, seg.text)
-    return _asked(line, a, line.text, scale=a.detail.scale)
+    return _asked(line, a, line.text, scale=getattr(a.detail, "scale", None))
 
 
 def ask_quantile(app, line: Line) -> Asked:
@@ -242,13 +258,18 @@ def summary(app, line: Line):
     answer_notes(app, s)
     if s.now is not None:
         return _summary_side_by_side(app, s)
-    rows, errs = [], []
+    rows, errs, absent = [], [], []
     for r in s.rows:
         ests = (r.mean, r.sd, r.q025, r.q50, r.q975)
-        rows.append([r.name] + [R.num(e.value) for e in ests])
+        rows.append([r.name] + [_cell(e) for e in ests])
         errs.extend(e.error for e in ests if e.error is not None)
+        gone = [w for w, e in (("mean", r.mean), ("sd", r.sd)) if e.method == "absent"]
+        if gone:
+            absent.append(f"`{r.name}` has no {' and no '.join(gone)} (tails too heavy)")
     p = app.printer
     p.lines(R.table(["param", "mean", "sd", "2.5%", "50%", "97.5%"], rows))
+    for text in absent:
+        p.line("- " + text)
     ev = s.log_evidence
     if ev is not None:
         p.line("log evidence = " + R.with_error(ev.value, ev.error))
@@ -261,16 +282,25 @@ def summary(app, line: Line):
     return Reply(shown=tuple(_summary_shown(s)))
 
 
+def _cell(e) -> str:
+    """A summary cell: the value, or `-` for a moment that does not exist."""
+    return "-" if e.method == "absent" else R.num(e.value)
+
+
 def _summary_shown(s) -> list[Shown]:
     shown = []
     for r in s.rows:
         sd = r.sd.value
-        shown.append(Shown(f"mean {r.name}", (r.mean.value,),
-                           R.check_tol([r.mean.value], [r.mean.error], scale=sd)))
-        shown.append(Shown(f"sd {r.name}", (sd,), R.check_tol([sd], [r.sd.error], scale=sd)))
+        spread = sd if math.isfinite(sd) else abs(r.q975.value - r.q025.value)
+        if r.mean.method != "absent":
+            shown.append(Shown(f"mean {r.name}", (r.mean.value,),
+                               R.check_tol([r.mean.value], [r.mean.error], scale=spread)))
+        if r.sd.method != "absent":
+            shown.append(Shown(f"sd {r.name}", (sd,),
+                               R.check_tol([sd], [r.sd.error], scale=spread)))
         for q, e in (("0.025", r.q025), ("0.5", r.q50), ("0.975", r.q975)):
             shown.append(Shown(f"quantile {r.name} {q}", (e.value,),
-                               R.check_tol([e.value], [e.error], scale=sd)))
+                               R.check_tol([e.value], [e.error], scale=spread)))
     if s.log_evidence is not None:
         ev = s.log_evidence
         shown.append(Shown("evidence", (ev.value,), R.check_tol([ev.value], [ev.error])))
@@ -286,7 +316,7 @@ def _summary_side_by_side(app, s) -> Reply:
         for which, x in (("now", now.get(r.name)), ("what if", r)):
             if x is None:
                 continue
-            rows.append([r.name, which] + [R.num(e.value) for e in
+            rows.append([r.name, which] + [_cell(e) for e in
                                            (x.mean, x.sd, x.q025, x.q50, x.q975)])
     p = app.printer
     p.lines(R.table(["param", "", "mean", "sd", "2.5%", "50%", "97.5%"], rows,

@@ -1,0 +1,171 @@
+"""Every number honest: HPD regions at domain edges, of several pieces and of
+discrete parameters; moments that do not exist.
+
+References: scipy.stats (beta, t, cauchy: quantiles and moments); fine-grid
+references computed here with numpy where no closed form exists (named beside
+each check). The data are small invented numbers used only as test input.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+import scipy.stats as st
+
+from test_shell_commands import Shell, value  # noqa: F401 (the shared harness)
+
+
+@pytest.fixture
+def sh(tmp_path):
+    return Shell(tmp_path)
+
+
+def run(sh, *lines: str) -> str:
+    sh.take()
+    for line in lines:
+        status = sh.app.run(line)
+        assert status not in ("error",), (line, sh.take())
+    out, err = sh.take()
+    assert "internal error" not in out + err, out + err
+    return out + err
+
+
+# ---------------------------------------------------------------------------
+# HPD regions
+
+def test_hpd_with_the_density_peaking_at_zero_is_one_sided(sh):
+    # the issue's line: a flat prior and 0 of 20 gives the posterior beta(1, 21)
+    # (beta-binomial conjugacy, common practice); its density falls from p = 0, so
+    # the 95% HPD is [0, q_0.95] (scipy.stats.beta.ppf)
+    out = run(sh, "param p unit", "prior p ~ beta(1, 1)", "data y = 0", "data n = 20",
+              "likelihood y ~ binomial(n, p)", "compute", "interval p 0.95 hpd")
+    lo, hi = value(out, "interval p 0.95 hpd")
+    assert lo == 0
+    assert hi == pytest.approx(st.beta(1, 21).ppf(0.95), rel=1e-6)
+    r = sh.app.ws.interval("p", 0.95, "hpd").detail
+    assert r.lo == 0.0 and r.hi == pytest.approx(st.beta(1, 21).ppf(0.95), rel=1e-7)
+
+
+@pytest.mark.parametrize("a, b", [(1, 20), (0.5, 5)])
+def test_hpd_of_a_prior_with_its_mode_at_zero(sh, a, b):
+    # beta(1, 20) falls from 0; beta(0.5, 5) is unbounded at 0: HPD [0, q_level]
+    # (scipy.stats.beta.ppf)
+    run(sh, "param p unit", f"prior p ~ beta({a}, {b})", "compute")
+    for level in (0.5, 0.95):
+        r = sh.app.ws.interval("p", level, "hpd").detail
+        assert r.lo == 0.0
+        assert r.hi == pytest.approx(st.beta(a, b).ppf(level), rel=1e-6)
+        assert r.pieces == ((r.lo, r.hi),)
+
+
+def test_hpd_with_the_mode_at_the_upper_edge(sh):
+    # beta(8, 1) rises to p = 1: HPD [q_0.10, 1] at level 0.9 (scipy.stats.beta.ppf)
+    run(sh, "param p unit", "prior p ~ beta(8, 1)", "compute")
+    r = sh.app.ws.interval("p", 0.9, "hpd").detail
+    assert r.hi == 1.0
+    assert r.lo == pytest.approx(st.beta(8, 1).ppf(0.1), rel=1e-6)
+
+
+def _fine_hpd(x: np.ndarray, dens: np.ndarray, level: float) -> list[tuple[float, float]]:
+    """The HPD region of a density tabulated on a fine uniform mesh `x`: the
+    highest cells until `level` of the mass (common practice), as runs."""
+    w = dens / dens.sum()
+    order = np.argsort(-w)
+    k = int(np.searchsorted(np.cumsum(w[order]), level)) + 1
+    keep = np.zeros(len(x), bool)
+    keep[order[:k]] = True
+    edges = np.flatnonzero(np.diff(keep.astype(int)))
+    starts = ([0] if keep[0] else []) + [e + 1 for e in edges if not keep[e]]
+    ends = [e for e in edges if keep[e]] + ([len(x) - 1] if keep[-1] else [])
+    return [(x[s], x[e]) for s, e in zip(starts, ends)]
+
+
+def test_hpd_of_a_bimodal_posterior_is_a_union(sh):
+    # a flat prior on [-10, 10] and two Cauchy observations far apart: two modes.
+    # Reference: the same density on 4 million points with numpy and
+    # scipy.stats.cauchy, its HPD region read off the ranked points
+    out = run(sh, "param m in -10 10", "data y = -3, 3", "likelihood y ~ cauchy(m, 0.5)",
+              "compute", "interval m 0.5 hpd")
+    assert "2 pieces" in out
+    x = np.linspace(-10, 10, 4_000_001)
+    dens = st.cauchy(-3, 0.5).pdf(x) * st.cauchy(3, 0.5).pdf(x)
+    ref = _fine_hpd(x, dens, 0.5)
+    assert len(ref) == 2
+    r = sh.app.ws.interval("m", 0.5, "hpd").detail
+    assert len(r.pieces) == 2
+    for (a, b), (ra, rb) in zip(r.pieces, ref):
+        assert a == pytest.approx(ra, abs=2e-5) and b == pytest.approx(rb, abs=2e-5)
+    assert (r.lo, r.hi) == (r.pieces[0][0], r.pieces[-1][1])
+
+
+def test_hpd_of_a_discrete_parameter_in_two_runs(sh):
+    # two bumps of a pmf on 0..30: the most probable values until 0.8 of the mass
+    # (the HPD set of a pmf, common practice), computed here with numpy
+    out = run(sh, "param k int 0 30",
+              "prior log log(exp(-(k - 5)^2 / 4) + exp(-(k - 22)^2 / 4))", "compute",
+              "interval k 0.8 hpd")
+    ks = np.arange(31)
+    w = np.exp(-(ks - 5) ** 2 / 4) + np.exp(-(ks - 22) ** 2 / 4)
+    w /= w.sum()
+    order = np.argsort(-w, kind="stable")
+    chosen = set(ks[order[:int(np.searchsorted(np.cumsum(w[order]), 0.8)) + 1]].tolist())
+    r = sh.app.ws.interval("k", 0.8, "hpd").detail
+    got = {k for a, b in r.pieces for k in range(int(a), int(b) + 1)}
+    assert got == chosen
+    assert len(r.pieces) == 2 and "2 pieces" in out
+
+
+# ---------------------------------------------------------------------------
+# moments that do not exist
+
+def test_cauchy_prior_has_no_mean_and_no_sd(sh):
+    # a Cauchy has neither (scipy.stats.cauchy.mean() is nan); its quantiles are
+    # scipy.stats.cauchy.ppf; a proper prior alone has log evidence 0
+    out = run(sh, "param m real", "prior m ~ cauchy(0, 1)", "compute", "mean m", "sd m",
+              "summary")
+    assert math.isnan(st.cauchy.mean())
+    assert "mean m: no mean (tails too heavy" in out
+    assert "sd m: no sd (tails too heavy" in out
+    assert "improper" not in out
+    ws = sh.app.ws
+    lo, hi = ws.interval("m", 0.95).detail.checked
+    ref = st.cauchy.ppf(0.975)
+    a = ws.interval("m", 0.95).detail
+    assert abs(hi - ref) <= max(a.hi_error, 1e-9) and abs(lo + ref) <= max(a.lo_error, 1e-9)
+    assert "`m` has no mean and no sd (tails too heavy)" in out
+    ev = ws.evidence().detail
+    assert abs(ev.value) <= ev.error
+
+
+def test_student_t_two_has_a_mean_and_no_sd(sh):
+    # t with 2 degrees of freedom: mean 0, infinite variance (scipy.stats.t moments)
+    assert st.t(2).mean() == 0 and math.isinf(st.t(2).var())
+    out = run(sh, "param m real", "prior m ~ student_t(2, 0, 1)", "compute", "mean m",
+              "sd m")
+    a = sh.app.ws.mean("m").detail
+    assert abs(a.value) <= a.error < 1e-2
+    assert "sd m: no sd (tails too heavy" in out
+    assert "improper" not in out
+
+
+def test_student_t_three_has_both(sh):
+    # t with 3 degrees of freedom: mean 0 and sd sqrt(3) (scipy.stats.t moments); the
+    # stated error covers the truth
+    out = run(sh, "param m real", "prior m ~ student_t(3, 0, 1)", "compute", "mean m",
+              "sd m")
+    assert "no mean" not in out and "no sd" not in out
+    ws = sh.app.ws
+    m, s = ws.mean("m").detail, ws.sd("m").detail
+    assert abs(m.value - st.t(3).mean()) <= m.error
+    assert abs(s.value - st.t(3).std()) <= s.error < 1e-2
+
+
+def test_light_tails_on_a_short_grid_are_not_called_heavy(sh):
+    # a normal cut at 2.5 sd decays faster than any power: its moments exist (the
+    # edge-mass warning tells of the cut)
+    out = run(sh, "param m real", "prior m ~ normal(0, 1)", "grid m -2.5 2.5 101", "compute",
+              "mean m", "sd m")
+    assert "no mean" not in out and "no sd" not in out
+    assert "mass at the lower edge" in out
