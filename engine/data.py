@@ -13,19 +13,19 @@ import io
 import math
 import os
 import re
-import stat
 from dataclasses import dataclass, field, replace
 
 import numpy as np
 
 from .errors import DataError, FormulaError
 from .expr import check_name
+from .files import MAX_DATA_BYTES, decode_text, read_bytes
 from .revision import next_revision
 
 #: Values beyond this magnitude are refused: their squares overflow float64.
 MAX_VALUE = 1e100
 #: Largest CSV file read, in bytes.
-MAX_FILE_BYTES = 512 * 1024 * 1024
+MAX_FILE_BYTES = MAX_DATA_BYTES
 
 
 @dataclass(frozen=True)
@@ -248,14 +248,6 @@ def typed_column(name: str, texts: list[str]) -> np.ndarray:
     return _frozen(np.concatenate(pieces))
 
 
-def sha256_of(path: str) -> str:
-    h = hashlib.sha256()
-    with open(path, "rb") as fh:
-        for chunk in iter(lambda: fh.read(1 << 20), b""):
-            h.update(chunk)
-    return h.hexdigest()
-
-
 @dataclass(frozen=True)
 class CsvTable:
     """A CSV file as read: header, numeric columns, rows and checksum."""
@@ -267,7 +259,7 @@ class CsvTable:
     sha256: str
 
 
-def read_csv(path: str) -> CsvTable:
+def read_csv(path: str, *, shown: str | None = None) -> CsvTable:
     """Read a CSV file with a header row and numeric cells.
 
     A UTF-8 byte-order mark and Windows line ends are accepted. Every other
@@ -275,7 +267,7 @@ def read_csv(path: str) -> CsvTable:
     being row 1) and column where it is.
     """
     name = os.path.basename(path)
-    raw = _read_bytes(path, name)
+    raw = read_bytes(path, shown=shown, what="CSV file", limit=MAX_FILE_BYTES)
     rows = _csv_rows(_decode(raw, name), name)
     header = _header(rows[0], name)
     body = rows[1:]
@@ -293,42 +285,9 @@ def read_csv(path: str) -> CsvTable:
     return CsvTable(path, tuple(header), cols, len(body), hashlib.sha256(raw).hexdigest())
 
 
-def _read_bytes(path: str, name: str) -> bytes:
-    """The file's bytes, from a regular file of at most `MAX_FILE_BYTES`."""
-    try:
-        st_ = os.stat(path)
-        if stat.S_ISDIR(st_.st_mode):
-            raise IsADirectoryError
-        if not stat.S_ISREG(st_.st_mode):
-            raise DataError(f"`{path}` is not a regular file (a device or a pipe); "
-                            "save the data to a CSV file first")
-        if st_.st_size > MAX_FILE_BYTES:
-            raise DataError(f"file `{name}` is {st_.st_size:,} bytes; the limit is "
-                            f"{MAX_FILE_BYTES:,}")
-        with open(path, "rb") as fh:
-            raw = fh.read(MAX_FILE_BYTES + 1)
-        if len(raw) > MAX_FILE_BYTES:
-            raise DataError(f"file `{name}` is larger than {MAX_FILE_BYTES:,} bytes")
-    except FileNotFoundError:
-        raise DataError(f"file `{path}` does not exist") from None
-    except IsADirectoryError:
-        raise DataError(f"`{path}` is a folder, not a file") from None
-    except PermissionError:
-        raise DataError(f"file `{path}` cannot be read (permission denied)") from None
-    except OSError as exc:
-        raise DataError(f"file `{path}` cannot be read ({exc.strerror or exc})") from None
-    return raw
-
-
 def _decode(raw: bytes, name: str) -> str:
-    """UTF-8 text (a byte-order mark dropped) with no NUL byte, not blank."""
-    try:
-        text = raw.decode("utf-8-sig")
-    except UnicodeDecodeError as exc:
-        line = raw[: exc.start].count(b"\n") + 1
-        raise DataError(f"file `{name}` row {line}: not UTF-8 text") from None
-    if "\x00" in text:
-        raise DataError(f"file `{name}` holds NUL bytes; it is not a CSV text file")
+    """UTF-8 text with no NUL byte, not blank."""
+    text = decode_text(raw, shown=name, what="CSV text file")
     if not text.strip():
         raise DataError(f"file `{name}` is empty")
     return text

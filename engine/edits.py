@@ -209,7 +209,7 @@ def data_typed(s: State, name: str, texts: list[str]) -> Outcome:
 
 def data_load(s: State, path: str, full: str, prefix: str | None = None) -> Outcome:
     """The columns of the CSV file at `full` (typed as `path`)."""
-    table = read_csv(full)
+    table = read_csv(full, shown=path)
     pre = (prefix + "_") if prefix else ""
     if prefix:
         checked_name(prefix, "prefix")
@@ -240,7 +240,7 @@ def appended_file(s: State, path: str, full: str, prefix: str | None = None
                   ) -> tuple[DataSet, str]:
     """The data with the rows of the CSV file at `full` at the end of the table
     loaded with the same header, and what that did."""
-    table = read_csv(full)
+    table = read_csv(full, shown=path)
     t = s.data.table_for_header(table.header, (prefix + "_") if prefix else None)
     if t is None:
         raise ModelError(f"no loaded table has the columns of `{os.path.basename(path)}` "

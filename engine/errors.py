@@ -45,3 +45,8 @@ class GridError(QuadratError):
 
 class ComputeError(QuadratError):
     """A computation that cannot give a trustworthy answer (NaN, all zero, ...)."""
+
+
+class FileError(DataError):
+    """A file that cannot be read or written: not there, not a regular file, too
+    large, not UTF-8 text. Names the file as the user typed it."""

@@ -1,8 +1,7 @@
 """Marginals and summaries to CSV and JSON files, written atomically.
 
-`atomic_write` writes a file so that a crash at any moment leaves either the
-old file whole or the new one whole: the text goes to a temporary file in the
-same folder, is flushed to disk, and replaces the target in one rename.
+The files are written with `engine.files.atomic_write`: a crash at any moment
+leaves either the old file whole or the new one whole.
 """
 
 from __future__ import annotations
@@ -12,11 +11,11 @@ import io
 import json
 import math
 import os
-import tempfile
 from dataclasses import dataclass
 from typing import Mapping
 
 from .errors import QuadratError
+from .files import atomic_write
 from .posterior import Estimate, Posterior
 
 FORMATS = (".csv", ".json")
@@ -40,63 +39,6 @@ class ExportReport:
     what: str
     rows: int
     bytes: int
-
-
-def atomic_write(path: str, text: str, *, encoding: str = "utf-8") -> int:
-    """Write `text` to `path` atomically; returns the number of bytes written.
-
-    Raises
-    ------
-    QuadratError
-        The folder does not exist or cannot be written; the target is then
-        untouched.
-    """
-    folder = os.path.dirname(os.path.abspath(path))
-    name = os.path.basename(path)
-    data = text.encode(encoding)
-    if os.path.isdir(path):
-        raise QuadratError(f"`{path}` is a folder, not a file")
-    try:
-        fd, tmp = tempfile.mkstemp(prefix=f".{name}.", suffix=".tmp", dir=folder)
-    except FileNotFoundError:
-        raise QuadratError(f"cannot write `{path}`: folder `{folder}` does not exist") from None
-    except OSError as exc:
-        raise QuadratError(f"cannot write `{path}`: {exc.strerror or exc}") from None
-    try:
-        with os.fdopen(fd, "wb") as fh:
-            fh.write(data)
-            fh.flush()
-            os.fsync(fh.fileno())
-        try:
-            # the new file keeps the old one's permissions, else the usual ones
-            mode = os.stat(path).st_mode & 0o777 if os.path.exists(path) else 0o666 & ~_umask()
-            os.chmod(tmp, mode)
-        except OSError:
-            pass
-        os.replace(tmp, path)
-    except BaseException as exc:
-        try:
-            os.unlink(tmp)
-        except OSError:
-            pass
-        if isinstance(exc, OSError):
-            raise QuadratError(f"cannot write `{path}`: {exc.strerror or exc}") from None
-        raise
-    try:
-        dfd = os.open(folder, os.O_RDONLY)
-        try:
-            os.fsync(dfd)
-        finally:
-            os.close(dfd)
-    except OSError:
-        pass  # some file systems cannot sync a folder; the rename itself is atomic
-    return len(data)
-
-
-def _umask() -> int:
-    mask = os.umask(0)
-    os.umask(mask)
-    return mask
 
 
 def _f(v) -> float | None:

@@ -58,6 +58,7 @@ class Tally:
     checked: int = 0
     cancelled: bool = False
     quit: bool = False
+    wrote: tuple[str, ...] = ()     # files a replay wrote (new files only)
 
     @property
     def exit_code(self) -> int:
@@ -103,6 +104,7 @@ class App:
         self.log: list[Entry] = []
         self.written: set[str] = set()      # files this session's save/export wrote
         self.replaying: list[str] = []      # session files being replayed (nesting)
+        self.replay_writes: list[list[str]] = []   # files each of those wrote, so far
         self.depth = 0
         self.current_where: str | None = None
 
@@ -121,8 +123,8 @@ class App:
             check_characters(line)
             cmd = self.lookup(line)
             reply = cmd.handler(self, line) or Reply()
-        except Quit:
-            raise
+        except (Quit, BrokenPipeError):
+            raise   # leaving, or the reader of the output went away (`| head`)
         except (KeyboardInterrupt, Exception) as exc:  # noqa: BLE001 - the loop must go on
             return self._failed(exc, line, mark)
         finally:

@@ -1,7 +1,8 @@
 """The `quadrat` command: the prompt, a session file, ``-c`` text or stdin.
 
 Exit status: 0 when all went well, 1 when a check failed, 2 at the first error
-(or after all of them with ``--keep-going``), 130 when interrupted.
+(or after all of them with ``--keep-going``), 130 when interrupted, 141 when the
+reader of the output went away (a closed pipe, as with ``| head``).
 """
 
 from __future__ import annotations
@@ -17,6 +18,8 @@ from .printer import Printer
 from .words import ShellError, split_commands
 
 EXIT_INTERRUPTED = 130
+#: The status of a command stopped by a closed pipe (128 + SIGPIPE), as the shell reports it.
+EXIT_PIPE = 141
 
 
 def parser() -> argparse.ArgumentParser:
@@ -79,13 +82,14 @@ def main(argv: list[str] | None = None, *, stdin=None, stdout=None, stderr=None)
         printer.error("interrupted")
         return EXIT_INTERRUPTED
     except BrokenPipeError:
-        # the reader went away (as with `| head`): stop quietly
+        # the reader went away (as with `| head`): stop quietly; the output stream
+        # now points at the null device so that nothing complains at exit
         try:
             devnull = os.open(os.devnull, os.O_WRONLY)
             os.dup2(devnull, stdout.fileno())
         except (OSError, ValueError, AttributeError):
             pass
-        return 1
+        return EXIT_PIPE
 
 
 def run_file(app: App, path: str) -> int:

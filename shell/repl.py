@@ -30,14 +30,44 @@ def prompt_text(ws) -> str:
     return WHATIF_PROMPT if ws.in_whatif else PROMPT
 
 
-def default_history() -> History:
+class KeptHistory(FileHistory):
+    """The prompt's history in a file, which a full disk or a lost file system does not
+    break: the first failed write gives one warning and the history goes on in
+    memory only. A history file that is not a regular file (a pipe) is not read."""
+
+    def __init__(self, filename: str, warn=None):
+        super().__init__(filename)
+        self.warn = warn
+        self.failed = False
+
+    def load_history_strings(self):
+        if os.path.lexists(self.filename) and not os.path.isfile(self.filename):
+            return []
+        try:
+            return list(super().load_history_strings())
+        except OSError:
+            return []
+
+    def store_string(self, string: str) -> None:
+        if self.failed:
+            return
+        try:
+            super().store_string(string)
+        except OSError as exc:
+            self.failed = True
+            if self.warn is not None:
+                self.warn(f"the prompt's history cannot be written to `{self.filename}` "
+                          f"({exc.strerror or exc}); it is kept in memory for this session")
+
+
+def default_history(warn=None) -> History:
     """History kept in the XDG state folder (in memory if that cannot be written)."""
     path = history_file()
     try:
         os.makedirs(os.path.dirname(path), exist_ok=True)
-        with open(path, "a", encoding="utf-8"):
-            pass
-        return FileHistory(path)
+        if os.path.lexists(path) and not os.path.isfile(path):
+            return InMemoryHistory()
+        return KeptHistory(path, warn)
     except OSError:
         return InMemoryHistory()
 
@@ -60,7 +90,7 @@ class Repl:
             lambda: prompt_text(app.ws),
             completer=ShellCompleter(lambda: Names.of(app.ws)),
             complete_while_typing=False,
-            history=history if history is not None else default_history(),
+            history=history if history is not None else default_history(app.printer.warning),
             bottom_toolbar=self.toolbar,
             key_bindings=bindings(),
             input=input,

@@ -15,7 +15,9 @@ import os
 import re
 from dataclasses import dataclass
 
-from engine.export import atomic_write
+from engine.errors import FileError
+from engine.files import (MAX_SESSION_BYTES, Target, atomic_write, first_line, read_text,
+                          sha256_of, write_target)
 
 from . import __version__
 from .words import Line, ShellError, split_lines
@@ -24,8 +26,6 @@ from .words import Line, ShellError, split_lines
 HEADER = "# quadrat session"
 #: How deep `replay` may nest (a file that replays another ...).
 MAX_REPLAY_DEPTH = 8
-#: Largest session file read, in bytes.
-MAX_SESSION_BYTES = 64 * 1024 * 1024
 _DATA = re.compile(r"^#\s*data\s+(?P<path>.+?)\s+sha256\s+(?P<sha>[0-9a-fA-F]{64})\s*$")
 #: A header comment that means to be a checksum line (and must then be whole).
 _DATA_LIKE = re.compile(r"^#\s*data\s.*\bsha256\b")
@@ -56,6 +56,7 @@ class SaveReport:
     commands: int
     checks: int
     data_files: int
+    via: str = ""       # how it went through a symbolic link, if it did
 
 
 # ---------------------------------------------------------------------------
@@ -104,43 +105,67 @@ def session_text(app, path: str, *, now: datetime.datetime | None = None) -> Ses
 
 
 def written_by_save(path: str) -> bool:
-    """Whether the file at `path` starts with the header `save` writes."""
+    """Whether the regular file at `path` starts with the header `save` writes."""
+    first = first_line(path)
+    return first is not None and first.startswith(HEADER)
+
+
+def may_write(app, full: str, shown: str, *, force: bool = False, word=None,
+              session_file: bool = False) -> Target:
+    """Where a write of `full` (typed as `shown`) lands, or the one line saying why not.
+
+    A session file being replayed writes new files only: never over a file that
+    was there before the replay began, this session's own files included, `force`
+    or not (a file someone sent must not replace the user's data, sessions or
+    results). Otherwise an existing file is overwritten only if this session wrote
+    it, with `force`, or (`session_file`) if `save` wrote it.
+    """
+    column = word.column if word is not None else None
     try:
-        with open(path, "r", encoding="utf-8", errors="replace") as fh:
-            return fh.readline().startswith(HEADER)
-    except OSError:
-        return False
+        target = write_target(full, shown=shown)
+    except FileError as exc:
+        raise ShellError(str(exc), column) from None
+    there = target.exists or target.link is not None
+    if app.replaying and there and target.path not in app.replay_writes[0]:
+        raise ShellError(f"`{shown}` exists: a session file being replayed writes new files "
+                         "only, never over an existing one (nothing was written)", column)
+    if not there or force or target.path in app.written:
+        return target
+    if session_file and written_by_save(target.path):
+        return target
+    if session_file:
+        raise ShellError(f"`{shown}` exists and was not written by `save`; `save {shown} force` "
+                         "overwrites it", column)
+    raise ShellError(f"`{shown}` exists and this session did not write it; add `force` to "
+                     "overwrite it", column)
 
 
-def refuse_replayed_overwrite(app, full: str, shown: str, word=None) -> None:
-    """A session file being replayed may write new files, and files this session
-    wrote, but never overwrite another existing file, `force` or not: a file
-    someone sent must not be able to replace the user's data or sessions."""
-    if app.replaying and os.path.exists(full) and os.path.realpath(full) not in app.written:
-        raise ShellError(f"`{shown}` exists: a session file being replayed may write new "
-                         "files only, never over existing ones",
-                         word.column if word is not None else None)
+def wrote(app, target: Target) -> str:
+    """Record a file just written (for `may_write` and a replay's list of writes);
+    returns the words to add to the message when it went through a link."""
+    app.written.add(target.path)
+    for frame in app.replay_writes:
+        if target.path not in frame:
+            frame.append(target.path)
+    return f" (written through the link to `{target.path}`)" if target.link else ""
 
 
 def save(app, path: str, *, force: bool = False, word=None) -> SaveReport:
     """Write the session atomically to `path` (never a half-written file).
 
     An existing file is overwritten only if this session wrote it, if `save`
-    wrote it (its first line is the header), or with `force`.
+    wrote it (its first line is the header), or with `force`; never by a file
+    being replayed (see `may_write`).
     """
     if not path.endswith(".qd"):
         raise ShellError(f"`{path}`: session files end in .qd",
                          word.column if word is not None else None)
     full = app.ws.resolve(path)
-    refuse_replayed_overwrite(app, full, path, word)
-    if os.path.exists(full) and not force and os.path.realpath(full) not in app.written \
-            and not written_by_save(full):
-        raise ShellError(f"`{path}` exists and was not written by `save`; `save {path} force` "
-                         "overwrites it", word.column if word is not None else None)
-    st = session_text(app, full)
-    atomic_write(full, st.text)
-    app.written.add(os.path.realpath(full))
-    return SaveReport(path, st.commands, st.checks, st.data_files)
+    target = may_write(app, full, path, force=force, word=word, session_file=True)
+    st = session_text(app, target.path)
+    atomic_write(target.path, st.text, shown=path)
+    via = wrote(app, target)
+    return SaveReport(path, st.commands, st.checks, st.data_files, via)
 
 
 # ---------------------------------------------------------------------------
@@ -149,27 +174,7 @@ def save(app, path: str, *, force: bool = False, word=None) -> SaveReport:
 def read_session(path: str, shown: str | None = None) -> list[str]:
     """The lines of session file `path` (named `shown` in messages)."""
     shown = shown or path
-    try:
-        if os.path.exists(path) and not os.path.isdir(path) and not os.path.isfile(path):
-            raise ShellError(f"`{shown}` is not a regular file")
-        with open(path, "rb") as fh:
-            raw = fh.read(MAX_SESSION_BYTES + 1)
-        if len(raw) > MAX_SESSION_BYTES:
-            raise ShellError(f"`{shown}` is larger than {MAX_SESSION_BYTES // (1 << 20)} MiB; "
-                             "it is not a session file")
-    except FileNotFoundError:
-        raise ShellError(f"file `{shown}` does not exist") from None
-    except IsADirectoryError:
-        raise ShellError(f"`{shown}` is a folder, not a session file") from None
-    except OSError as exc:
-        raise ShellError(f"file `{shown}` cannot be read ({exc.strerror or exc})") from None
-    try:
-        text = raw.decode("utf-8-sig")
-    except UnicodeDecodeError as exc:
-        line = raw[: exc.start].count(b"\n") + 1
-        raise ShellError(f"`{shown}` line {line}: not UTF-8 text") from None
-    if "\x00" in text:
-        raise ShellError(f"`{shown}` holds NUL bytes; it is not a session file")
+    text, _ = read_text(path, shown=shown, what="session file", limit=MAX_SESSION_BYTES)
     return split_lines(text)
 
 
@@ -195,25 +200,33 @@ def data_checks(lines: list[str], shown: str = "the session file") -> list[DataC
     return out
 
 
-def verify_data(path: str, checks: list[DataCheck]) -> list[str]:
-    """Each data file named in the header whose bytes are not the ones saved."""
-    from engine.data import sha256_of
+@dataclass(frozen=True)
+class DataProblem:
+    """A data file named in a session's header that is not as saved. `allowable`:
+    whether `--allow-changed-data` may go on past it (a file that changed or is
+    missing; not one that is a device or a pipe, or cannot be read)."""
 
+    message: str
+    allowable: bool
+
+
+def verify_data(path: str, checks: list[DataCheck]) -> list[DataProblem]:
+    """Each data file named in the header whose bytes are not the ones saved."""
     folder = os.path.dirname(os.path.abspath(path))
     problems = []
     for c in checks:
         full = c.path if os.path.isabs(c.path) else os.path.join(folder, c.path)
         try:
-            now = sha256_of(full)
-        except FileNotFoundError:
-            problems.append(f"data file `{c.path}` is missing")
-            continue
-        except OSError as exc:
-            problems.append(f"data file `{c.path}` cannot be read ({exc.strerror or exc})")
+            now = sha256_of(full, shown=c.path)
+        except FileError as exc:
+            missing = not os.path.lexists(full)
+            problems.append(DataProblem(f"data file `{c.path}` is missing" if missing
+                                        else str(exc), missing))
             continue
         if now != c.sha256:
-            problems.append(f"data file `{c.path}` has changed since the session was saved "
-                            f"(sha256 was {c.sha256[:12]}..., now {now[:12]}...)")
+            problems.append(DataProblem(
+                f"data file `{c.path}` has changed since the session was saved "
+                f"(sha256 was {c.sha256[:12]}..., now {now[:12]}...)", True))
     return problems
 
 
@@ -233,19 +246,26 @@ def replay(app, path: str, *, shown: str | None = None, allow_changed_data: bool
     lines = read_session(full, shown)
     problems = verify_data(full, data_checks(lines, shown))
     allow = allow_changed_data or app.allow_changed_data
-    if problems and not allow:
-        raise ShellError(f"`{shown}`: {problems[0]}; replay with --allow-changed-data to go on"
-                         + (f" ({len(problems) - 1} more)" if len(problems) > 1 else ""))
+    more = f" ({len(problems) - 1} more)" if len(problems) > 1 else ""
     for p in problems:
-        app.printer.warning(f"`{shown}`: {p}; going on as told")
+        if not p.allowable:
+            raise ShellError(f"`{shown}`: {p.message}; nothing was replayed{more}")
+    if problems and not allow:
+        raise ShellError(f"`{shown}`: {problems[0].message}; replay with "
+                         f"--allow-changed-data to go on{more}")
+    for p in problems:
+        app.printer.warning(f"`{shown}`: {p.message}; going on as told")
     ws = app.ws
     old_base = ws.base_dir
     ws.base_dir = os.path.dirname(full)
     app.replaying.append(real)
+    app.replay_writes.append([])
     name = shown
     try:
         tally = app.run_lines(lines, lambda i: f"{name} line {i}")
     finally:
         app.replaying.pop()
+        tally_writes = app.replay_writes.pop()
         ws.base_dir = old_base
+    tally.wrote = tuple(tally_writes)
     return tally

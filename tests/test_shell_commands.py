@@ -189,7 +189,7 @@ def test_data_bad(sh, tmp_path):
     assert sh.error("data k = 1, two, 3") == "error: data `k` value 2: `two` is not a number"
     # a relative path is read from the session's folder, and the message says where
     assert sh.error("data load nothere.csv") == (
-        f"error: file `{tmp_path / 'nothere.csv'}` does not exist")
+        f"error: file `nothere.csv` does not exist in folder `{tmp_path}`")
 
 
 # ---------------------------------------------------------------------------
@@ -424,7 +424,7 @@ def test_export_csv_json_and_summary(model, tmp_path):
 def test_export_keeps_a_file_it_did_not_write(model, tmp_path):
     (tmp_path / "mine.csv").write_text("precious\n")
     assert model.error("export mine.csv") == (
-        f"error: column 8: `{tmp_path / 'mine.csv'}` exists and this session did not write "
+        "error: column 8: `mine.csv` exists and this session did not write "
         "it; add `force` to overwrite it")
     assert (tmp_path / "mine.csv").read_text() == "precious\n"
     assert model("export mine.csv force") == "ok"
@@ -468,7 +468,8 @@ def test_replay_runs_a_saved_session(model, tmp_path):
     assert "check ok: interval p = " in out
     assert out.endswith("replayed `s.qd`: all 1 checks held\n")
     assert [e.text for e in sh2.app.log] == MODEL + ["interval p"]
-    assert sh2.error("replay nothere.qd") == "error: file `nothere.qd` does not exist"
+    assert sh2.error("replay nothere.qd") == (
+        f"error: file `nothere.qd` does not exist in folder `{tmp_path}`")
 
 
 def test_history_lists_what_save_keeps(model):

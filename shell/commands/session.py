@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import os
 import textwrap
 
 from engine.expr import FUNCTIONS
@@ -38,7 +39,7 @@ def save(app, line: Line):
         if rep.data_files else ""
     app.printer.line(f"saved `{rep.path}`: {rep.commands} command"
                      f"{'s' if rep.commands != 1 else ''}, {rep.checks} check"
-                     f"{'s' if rep.checks != 1 else ''}{extra}")
+                     f"{'s' if rep.checks != 1 else ''}{extra}{rep.via}")
     if app.ws.in_whatif:
         app.printer.note("saved inside a what-if layer: the file ends inside it, without "
                          "`whatif end`")
@@ -79,6 +80,10 @@ def report(app, path: str, tally, *, undone: bool = False) -> None:
     """One line on how a replay went (`undone`: a replay that ends in an error is
     undone whole, and the line says so)."""
     checks = tally.checked + tally.failed
+    if tally.wrote:
+        n = len(tally.wrote)
+        app.printer.line(f"the replay of `{path}` wrote {n} new file{'s' if n != 1 else ''}: "
+                         + ", ".join(f"`{_shown(app, p)}`" for p in tally.wrote))
     if tally.errors:
         tail = "; the state is as it was before the replay" if undone else ""
         app.printer.error((f"replay of `{path}` stopped at an error" if not app.keep_going else
@@ -90,6 +95,12 @@ def report(app, path: str, tally, *, undone: bool = False) -> None:
         app.printer.line(f"replayed `{path}`: all {checks} checks held", "ok")
     else:
         app.printer.line(f"replayed `{path}`")
+
+
+def _shown(app, path: str) -> str:
+    """A path written as the user would: relative to the working folder when inside it."""
+    rel = os.path.relpath(path)
+    return path if rel.startswith("..") else rel
 
 
 @command("history", usage="history", group="session",

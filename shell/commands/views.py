@@ -14,6 +14,7 @@ from engine.model import ReducedTerm
 from .. import __version__
 from .. import render as R
 from ..registry import NOTHING, Slot, command
+from ..script import may_write, wrote
 from ..words import Line, ShellError, path_word
 from .common import notes
 
@@ -295,19 +296,6 @@ def _complete_export(words, text):
     return Slot(words=("force",))
 
 
-def may_write(app, path: str, force: bool, word) -> None:
-    """Refuse to overwrite a file this session did not write, unless forced (and
-    never from a session file being replayed)."""
-    from ..script import refuse_replayed_overwrite
-    refuse_replayed_overwrite(app, path, path, word)
-    if force or not os.path.exists(path):
-        return
-    if os.path.realpath(path) in app.written:
-        return
-    raise ShellError(f"`{path}` exists and this session did not write it; add `force` to "
-                     "overwrite it", word.column)
-
-
 @command("export", usage=EXPORT_USAGE, group="view", complete=_complete_export,
          help="""Writes the posterior to a file. `FILE.csv` gets every marginal as one long
          table (parameter, value, density, mass); `export summary FILE.csv` the summary table
@@ -334,20 +322,19 @@ def export(app, line: Line):
     if what == "summary" and ext != ".csv":
         raise ShellError("`export summary` writes a .csv file; JSON holds the summary anyway",
                          word.column)
-    full = app.ws.resolve(path)
-    may_write(app, full, force, word)
+    target = may_write(app, app.ws.resolve(path), path, force=force, word=word)
     summary = app.ws.summary()
     notes(app, summary.notes)
     post = app.ws.posterior_now
     meta = {"quadrat": __version__,
             "exported": datetime.datetime.now(datetime.timezone.utc).isoformat(timespec="seconds"),
             "model": session_model_text(app.ws)}
-    rep = E.export(full, post, summary, what=what, meta=meta)
-    app.written.add(os.path.realpath(full))
+    rep = E.export(target.path, post, summary, what=what, meta=meta)
+    via = wrote(app, target)
     kind = {"marginals": "marginals", "summary": "summary", "all": "summary and marginals"}
     unit = "parameters" if rep.what == "all" else "rows"
     app.printer.line(f"wrote {kind[rep.what]} to `{path}` ({rep.rows} {unit}, "
-                     f"{R.bytes_text(rep.bytes)})")
+                     f"{R.bytes_text(rep.bytes)}){via}")
 
 
 def session_model_text(ws) -> list[str]:

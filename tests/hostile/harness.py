@@ -178,6 +178,15 @@ class Probe:
 
 
 def prepare_folder(folder: str) -> None:
-    """The files a probe's folder holds: a CSV file and a session that loads it."""
+    """The files a probe's folder holds: a CSV file; two pipes (FIFOs, which git cannot
+    hold: `pipe.fifo` named by a checksum line, `pipe.qd` as the target of `save`); a
+    session file `target.qd` with a symbolic link `link.qd` to it, and a link
+    `dangling.qd` to nothing."""
     with open(os.path.join(folder, "d.csv"), "w", encoding="utf-8") as fh:
         fh.write(CSV)
+    for name in ("pipe.fifo", "pipe.qd"):
+        os.mkfifo(os.path.join(folder, name))
+    with open(os.path.join(folder, "target.qd"), "w", encoding="utf-8") as fh:
+        fh.write("# quadrat session, saved by hand (invented)\nparam p unit\n")
+    os.symlink("target.qd", os.path.join(folder, "link.qd"))
+    os.symlink("nowhere.qd", os.path.join(folder, "dangling.qd"))
