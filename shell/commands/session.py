@@ -23,7 +23,9 @@ from .common import say
          question, as typed (undone ones left out), each question followed by a `check`
          line with the numbers shown and a tolerance. The write is atomic: the old file
          stays whole until the new one replaces it. An existing file is overwritten only if
-         `save` wrote it; `save FILE.qd force` overwrites any file.""")
+         `save` wrote it; `save FILE.qd force` overwrites any regular file. A symbolic link is
+         written through to the file it points to, and the message says so; a pipe or a
+         device is refused. Inside a file being replayed, `save` writes new files only.""")
 def save(app, line: Line):
     w = line.words
     if len(w) < 2:
@@ -56,7 +58,10 @@ _ALLOW = ("--allow-changed-data", "allow-changed-data")
          unless `--allow-changed-data` is given. It stops at the first error, and then keeps
          nothing of the file: the state is as before the replay. Every check
          that moved is reported with its old and new value. Relative paths in the file are
-         read from the file's folder. Ctrl-C stops it and leaves the state as before.""")
+         read from the file's folder. A replayed file writes new files only: its `save` and
+         `export` never replace a file that was there before the replay, this session's
+         own files included, `force` or not; the files it wrote are listed at the end.
+         Ctrl-C stops it and leaves the state as before.""")
 def replay(app, line: Line):
     w = line.words
     if len(w) < 2:
