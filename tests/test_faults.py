@@ -191,7 +191,7 @@ def test_ctrl_c_during_refine_in_python(tmp_path):
 
 _SAVE_DRIVER = textwrap.dedent("""
     import os, sys, time
-    import engine.export as E
+    import engine.files as E
     from shell.app import App
 
     real_fdopen = os.fdopen
@@ -240,7 +240,7 @@ def test_kill_9_in_the_middle_of_save_leaves_the_old_file_whole(tmp_path):
     try:
         assert child.stdout.readline().strip() == "halfway"
         # the kill lands in the middle of the write: half the new text is in the temp file
-        (temp,) = [n for n in os.listdir(tmp_path) if n.startswith(".s.qd.")]
+        (temp,) = [n for n in os.listdir(tmp_path) if n.startswith(".qd-")]
         assert os.path.getsize(tmp_path / temp) > 10 * len(old)
         child.send_signal(signal.SIGKILL)
     finally:
