@@ -117,6 +117,7 @@ class App:
         if line.blank:
             return "blank"
         mark = Mark(self.ws.state, self.ws.in_whatif, len(self.log), f"{where}: " if where else "")
+        self.printer.written = 0      # a picture leaves room for what this line prints
         self.depth += 1
         outer_where, self.current_where = self.current_where, where
         try:

@@ -13,7 +13,9 @@ import shutil
 import sys
 import time
 import unicodedata
-from typing import Callable, TextIO
+from typing import Callable, Iterable, TextIO
+
+from .layout import Table, wrap
 
 _STYLES = {"error": "\x1b[31m", "warning": "\x1b[33m", "note": "\x1b[2m", "ok": "\x1b[32m",
            "bold": "\x1b[1m"}
@@ -61,16 +63,35 @@ class Printer:
         Columns to draw at (default: the terminal's, or ``COLUMNS``, or 80).
     color : bool, optional
         Whether to colour (default: `colour_allowed(out)`).
+    height : int, optional
+        Rows of the screen (default: the terminal's, or ``LINES``; none when the
+        output is not a terminal: pictures then take their natural size).
+    wrap : bool, optional
+        Break lines wider than `width` at blanks (default: when `out` is a terminal,
+        which would otherwise break them anywhere, inside words and numbers).
+
+    Attributes
+    ----------
+    more : callable or None
+        Asked between the pages of a long listing (`page`); returns False to stop.
+        The prompt sets it; batch use has none and prints listings whole.
+    written : int
+        Screen lines written so far (what a picture leaves room for).
     """
 
     def __init__(self, out: TextIO | None = None, err: TextIO | None = None, *,
                  width: int | None = None, color: bool | None = None,
+                 height: int | None = None, wrap: bool | None = None,
                  clock: Callable[[], float] = time.monotonic):
         self.out = out if out is not None else sys.stdout
         self.err = err if err is not None else self.out
         self.color = colour_allowed(self.out) if color is None else color
         self._width = width
+        self._height = height
+        self.wrap = is_terminal(self.out) if wrap is None else wrap
         self.clock = clock
+        self.more: Callable[[], bool] | None = None
+        self.written = 0
 
     @property
     def width(self) -> int:
@@ -84,18 +105,76 @@ class Printer:
             cols = shutil.get_terminal_size((80, 24)).columns
         return max(40, min(cols or 80, 200))
 
+    @property
+    def height(self) -> int | None:
+        if self._height:
+            return self._height
+        try:
+            rows = int(os.environ.get("LINES", "0"))
+        except ValueError:
+            rows = 0
+        if rows <= 0 and is_terminal(self.out):
+            rows = shutil.get_terminal_size((80, 24)).lines
+        return max(rows, 10) if rows > 0 else None
+
+    def room(self, natural: int, *, keep: int = 3, least: int = 8) -> int:
+        """Rows a picture of `natural` rows may take so that the command's own line
+        above it, whatever the command printed before it, and the prompt and toolbar
+        below it (`keep` rows in all besides those printed) stay on the screen."""
+        h = self.height
+        if h is None:
+            return natural
+        return max(least, min(natural, h - self.written - keep))
+
     def _paint(self, text: str, style: str | None) -> str:
         if not self.color or style is None:
             return text
         return _STYLES[style] + text + _RESET
 
+    def _fitted(self, text: str) -> list[str]:
+        return wrap(text, self.width) if self.wrap else [text]
+
     def line(self, text: str = "", style: str | None = None) -> None:
-        self.out.write(self._paint(text, style) + "\n")
+        for piece in self._fitted(text):
+            self.out.write(self._paint(piece, style) + "\n")
+            self.written += 1
         self.out.flush()
 
-    def lines(self, texts) -> None:
+    def lines(self, texts: Iterable) -> None:
+        """Lines of prose, and `Table`s drawn to the width."""
         for t in texts:
-            self.line(t)
+            if isinstance(t, Table):
+                for x in t.fit(self.width):
+                    self.line(x)
+            else:
+                self.line(t)
+
+    def block(self, text: str) -> None:
+        """A picture already drawn to the width: written as it is, never wrapped."""
+        for x in text.splitlines():
+            self.out.write(x + "\n")
+            self.written += 1
+        self.out.flush()
+
+    def page(self, texts: Iterable) -> None:
+        """A long listing: in pages of a screen when the prompt can ask for more."""
+        flat: list[str] = []
+        for t in texts:
+            if isinstance(t, Table):
+                flat.extend(t.fit(self.width))
+            else:
+                flat.extend(self._fitted(t))
+        h = self.height
+        if self.more is None or h is None or len(flat) <= h - 2:
+            for x in flat:
+                self.line(x)
+            return
+        step = max(h - 2, 5)
+        for start in range(0, len(flat), step):
+            for x in flat[start:start + step]:
+                self.line(x)
+            if start + step < len(flat) and not self.more():
+                break
 
     # notes, warnings and errors quote names, paths and cells from files: they are
     # shown with any control character escaped, on one line
@@ -106,7 +185,10 @@ class Printer:
         self.line("warning: " + visible(text), "warning")
 
     def error(self, text: str) -> None:
-        self.err.write(self._paint(visible(text), "error") + "\n")
+        for piece in self._fitted(visible(text)):
+            self.err.write(self._paint(piece, "error") + "\n")
+            if self.err is self.out:
+                self.written += 1
         self.err.flush()
 
     def progress(self) -> "Progress":

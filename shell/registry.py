@@ -25,6 +25,10 @@ GROUPS = (
     ("session", "sessions and housekeeping"),
 )
 
+#: The word `help WORD` takes for each group (none is a command's name).
+GROUP_WORDS = {"model": "model", "grid": "computing", "question": "questions",
+               "arrival": "arrivals", "view": "views", "session": "sessions"}
+
 
 @dataclass(frozen=True)
 class Slot:

@@ -23,6 +23,8 @@ from .words import Quit
 PROMPT = "quadrat> "
 #: The prompt inside a what-if layer.
 WHATIF_PROMPT = "quadrat (what-if)> "
+#: Between the pages of a long listing.
+MORE = "-- more: Enter for the next page, q to stop -- "
 
 
 def prompt_text(ws) -> str:
@@ -96,6 +98,17 @@ class Repl:
             input=input,
             output=output,
         )
+        # a listing longer than the screen stops after each page
+        self.pager = PromptSession(input=input, output=output, history=InMemoryHistory())
+        app.printer.more = self.more
+
+    def more(self) -> bool:
+        """Between pages: Enter goes on, `q` (or Ctrl-C, Ctrl-D) stops."""
+        try:
+            text = self.pager.prompt(MORE)
+        except (KeyboardInterrupt, EOFError):
+            return False
+        return not text.strip().lower().startswith("q")
 
     def toolbar(self) -> str:
         return toolbar_text(self.app.ws.status(), self.app.printer.width)

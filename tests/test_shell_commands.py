@@ -518,8 +518,17 @@ def test_help_lists_every_command_and_explains_one(sh):
 
     sh("help")
     out = sh.take()[0]
+    # the overview names every command, by group, on one screen of 80 x 24
+    assert len(out.splitlines()) <= 22
+    for c in COMMANDS.values():
+        assert f" {c.name} " in out.replace("\n", " ") + " "
+    sh("help all")
+    out = sh.take()[0]
     for c in COMMANDS.values():
         assert "  " + c.usage + "\n" in out
+    sh("help questions")
+    out = sh.take()[0]
+    assert out.startswith("questions\n  prob CONDITION\n") and "save FILE" not in out
     sh("help interval")
     out = sh.take()[0].splitlines()
     assert out[0] == COMMANDS["interval"].usage

@@ -15,6 +15,7 @@ from dataclasses import dataclass
 from engine.results import Answer, SampleSizeOptions
 
 from .. import render as R
+from ..layout import Table
 from ..registry import NOTHING, Slot, command
 from ..replies import Asked, Shown
 from ..words import Line, Segment, ShellError, Word, formula_at, number, whole
@@ -93,7 +94,7 @@ def ask_predict(app, line: Line) -> Asked:
     if a.now is None and pv.discrete:
         rows = _pmf_rows(pv)
         if rows:
-            lines += R.table([name.text, "pmf", "cdf"], rows, align="rrr", indent=2)
+            lines.append(Table.of([name.text, "pmf", "cdf"], rows, align="rrr", indent=2))
     kind = "pmf" if pv.discrete else "density"
     lines.append(f"`prob {name.text} > ...`, `mean {name.text}`, `quantile {name.text} Q` and "
                  f"`interval {name.text}` ask about it; `plot {name.text}` draws its {kind}")
@@ -236,9 +237,9 @@ def ask_samplesize(app, line: Line) -> Asked:
     res, n = d.search, d.n
     lines = []
     if res.steps:
-        lines += R.table(["further n", "expected width", "Monte Carlo error"],
-                         [[R.count(s.n), R.num(s.width, 4), R.num(s.mc_error, 2)]
-                          for s in res.steps], align="rrr")
+        lines.append(Table.of(["further n", "expected width", "Monte Carlo error"],
+                              [[R.count(s.n), R.num(s.width, 4), R.num(s.mc_error, 2)]
+                               for s in res.steps], align="rrr"))
     what = f"{d.level:g} {d.kind} interval of `{o.name}`"
     if n is None:
         lines.append(f"{line.text}: {res.message}")

@@ -7,6 +7,7 @@ from engine.plan import format_count
 from engine.rules import RULE_HELP, RULES
 
 from .. import render as R
+from ..layout import Table
 from ..registry import NOTHING, Slot, command
 from ..words import Line, ShellError, number, whole
 from .common import notes, say, with_progress
@@ -115,9 +116,9 @@ def cost(app, line: Line):
     if rep.ahead:
         p.line("refinement steps ahead, each doubling the resolution of every continuous axis "
                "(reusing the points already evaluated):")
-        p.lines(R.table(["step", "points", "memory", "time"],
-                        [[str(a.step), format_count(a.points), R.bytes_text(a.memory),
-                          R.duration(a.seconds)] for a in rep.ahead], indent=2))
+        p.lines([Table.of(["step", "points", "memory", "time"],
+                          [[str(a.step), format_count(a.points), R.bytes_text(a.memory),
+                            R.duration(a.seconds)] for a in rep.ahead], indent=2)])
     if rep.auto:
         p.note("axes not set come from `grid auto`")
     if c.points >= COUNT_LIMIT:

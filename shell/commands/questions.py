@@ -12,6 +12,7 @@ import math
 from engine.results import Answer, NoMoment
 
 from .. import render as R
+from ..layout import Table
 from ..registry import COMMANDS, NOTHING, Slot, command
 from ..replies import Asked, Reply, Shown
 from ..words import Line, ShellError, Word, formula_at, lone_equals, number
@@ -35,9 +36,10 @@ def _values(a: Answer) -> str:
     return f"{vals}  ({', '.join(R.err(e) for e in a.errors if e is not None)})"
 
 
-def side_by_side(label: str, now: str, whatif: str) -> tuple[str, ...]:
-    """Inside a what-if layer: the answer as things are and as they would be."""
-    return tuple(R.table(["", "now", "what if"], [[label, now, whatif]]))
+def side_by_side(label: str, now: str, whatif: str) -> tuple[Table, ...]:
+    """Inside a what-if layer: the answer as things are and as they would be (one
+    under the other when the line would not fit the screen)."""
+    return (Table.of(["", "now", "what if"], [[label, now, whatif]]),)
 
 
 def answer_lines(label: str, a: Answer, values=_values) -> tuple[str, ...]:
@@ -267,7 +269,7 @@ def summary(app, line: Line):
         if gone:
             absent.append(f"`{r.name}` has no {' and no '.join(gone)} (tails too heavy)")
     p = app.printer
-    p.lines(R.table(["param", "mean", "sd", "2.5%", "50%", "97.5%"], rows))
+    p.lines([Table.of(["param", "mean", "sd", "2.5%", "50%", "97.5%"], rows)])
     for text in absent:
         p.line("- " + text)
     ev = s.log_evidence
@@ -319,8 +321,8 @@ def _summary_side_by_side(app, s) -> Reply:
             rows.append([r.name, which] + [_cell(e) for e in
                                            (x.mean, x.sd, x.q025, x.q50, x.q975)])
     p = app.printer
-    p.lines(R.table(["param", "", "mean", "sd", "2.5%", "50%", "97.5%"], rows,
-                    align="llrrrrr"))
+    p.lines([Table.of(["param", "", "mean", "sd", "2.5%", "50%", "97.5%"], rows,
+                      align="llrrrrr", lead=2)])
 
     def ev(x):
         return R.num(x.log_evidence.value) if x.log_evidence is not None else "not defined"

@@ -13,6 +13,7 @@ from engine.errors import QuadratError
 from engine.plan import format_count
 
 from .. import render as R
+from ..layout import Table
 from ..registry import NOTHING, Slot, command
 from ..replies import Reply, Shown
 from ..words import Line, ShellError, number
@@ -50,7 +51,7 @@ def _change(v) -> str:
     return "-" if v is None else R.num(v, 2)
 
 
-def refine_table(steps, width: int) -> list[str]:
+def refine_table(steps, width: int) -> list:
     """The table of what moved, one row a step: in one table when it fits the
     width, else a table of the steps and one per parameter."""
     if not steps:
@@ -78,12 +79,13 @@ def refine_table(steps, width: int) -> list[str]:
     lines = R.table(wide_head, wide_rows, align="r" * (len(wide_head) - 1) + "l")
     if max(len(x) for x in lines) <= width:
         return lines
-    out = R.table(head + tail, [base(s) + ends(s) for s in steps],
-                  align="r" * (len(head) + 1) + "l")
+    out = [Table.of(head + tail, [base(s) + ends(s) for s in steps],
+                    align="r" * (len(head) + 1) + "l")]
     for n in names:
         out.append(f"`{n}`:")
-        out += R.table(["step", "mean", "sd", "lo95", "hi95"],
-                       [[str(s.step)] + per(s, n) for s in steps], align="rrrrr", indent=2)
+        out.append(Table.of(["step", "mean", "sd", "lo95", "hi95"],
+                            [[str(s.step)] + per(s, n) for s in steps], align="rrrrr",
+                            indent=2))
     return out
 
 

@@ -9,7 +9,7 @@ from engine.expr import FUNCTIONS
 from engine.families import FAMILIES
 
 from .. import script
-from ..registry import COMMANDS, GROUPS, LATER, NOTHING, Slot, command
+from ..registry import COMMANDS, GROUP_WORDS, GROUPS, LATER, NOTHING, Slot, command
 from ..replies import Reply
 from ..words import Line, Quit, ShellError, path_word
 from .common import say
@@ -181,15 +181,20 @@ def quit_(app, line: Line):
 def _complete_help(words, text):
     if len(words) == 1:
         return Slot(commands=True, families=True, functions=True,
-                    words=("families", "functions"))
+                    words=("all", "families", "functions", *GROUP_WORDS.values()))
     return NOTHING
 
 
-@command("help", usage="help [COMMAND | FAMILY | FUNCTION | families | functions]",
-         group="session", complete=_complete_help,
-         help="""Lists the commands; `help COMMAND` tells what one does, `help families` and
-         `help functions` list the distributions and the functions formulas may use, and
-         `help NAME` describes one of them.""")
+HELP_USAGE = "help [COMMAND | GROUP | all | FAMILY | FUNCTION | families | functions]"
+
+
+@command("help", usage=HELP_USAGE, group="session", complete=_complete_help,
+         help="""Lists the commands by group, on one screen; `help GROUP` gives the usage
+         lines of one group (model, computing, questions, arrivals, views, sessions), `help
+         all` those of every command, `help COMMAND` tells what one does, `help families`
+         and `help functions` list the distributions and the functions formulas may use,
+         and `help NAME` describes one of them. At the prompt a listing longer than the
+         screen stops after each page (Enter for the next, q to stop).""")
 def help_(app, line: Line):
     w = line.words
     width = app.printer.width
@@ -198,20 +203,31 @@ def help_(app, line: Line):
         return
     if len(w) > 2:
         raise ShellError(f"unexpected `{w[2].text}`: help takes one name", w[2].column)
-    app.printer.lines(help_lines(w[1].text, width, column=w[1].column))
+    app.printer.page(help_lines(w[1].text, width, column=w[1].column))
 
 
 def overview() -> list[str]:
+    """The commands by group: one screen at 80 x 24."""
     out = []
     for group, title in GROUPS:
-        cmds = [c for c in COMMANDS.values() if c.group == group]
-        if not cmds:
+        names = [c.name for c in COMMANDS.values() if c.group == group]
+        if not names:
+            continue
+        out.append(f"{title} (`help {GROUP_WORDS[group]}`)")
+        out.append("  " + "  ".join(names))
+    out.append("`help COMMAND` tells what a command does; `help all` lists every usage line;")
+    out.append("`help families` and `help functions` list what formulas may use.")
+    out.append("`#` starts a comment; `;` separates commands on one line.")
+    return out
+
+
+def usage_lines(groups) -> list[str]:
+    out = []
+    for group, title in GROUPS:
+        if group not in groups:
             continue
         out.append(title)
-        for c in cmds:
-            out.append("  " + c.usage)
-    out.append("`help COMMAND` tells more; `help families` and `help functions` list what")
-    out.append("formulas may use. `#` starts a comment.")
+        out.extend("  " + c.usage for c in COMMANDS.values() if c.group == group)
     return out
 
 
@@ -221,6 +237,11 @@ def help_lines(name: str, width: int, *, column: int | None = None) -> list[str]
     if name in COMMANDS:
         c = COMMANDS[name]
         return [c.usage] + wrap.wrap(c.help)
+    if name == "all":
+        return usage_lines(dict(GROUPS))
+    groups = {v: k for k, v in GROUP_WORDS.items()}
+    if name in groups:
+        return usage_lines((groups[name],))
     if name == "families":
         return [f"  {f.usage():<28} {f.support}" for f in FAMILIES.values()]
     if name == "functions":

@@ -13,6 +13,7 @@ from engine.model import ReducedTerm
 
 from .. import __version__
 from .. import render as R
+from ..layout import Table
 from ..registry import NOTHING, Slot, command
 from ..script import may_write, wrote
 from ..words import Line, ShellError, path_word
@@ -37,7 +38,7 @@ def show(app, line: Line):
     if len(w) != 2 or w[1].text not in ("model", "data", "grid"):
         col = w[2].column if len(w) > 2 else (w[1].column if len(w) > 1 else line.end_column())
         raise ShellError("usage: show model | data | grid", col)
-    app.printer.lines({"model": model_lines, "data": data_lines, "grid": grid_lines}[
+    app.printer.page({"model": model_lines, "data": data_lines, "grid": grid_lines}[
         w[1].text](app.ws))
 
 
@@ -110,8 +111,8 @@ def data_lines(ws) -> list[str]:
         v = c.values
         rows.append([c.name, str(c.rows), c.table or "typed", R.num(float(v.min())),
                      R.num(float(v.max())), R.num(float(v.mean())), _short(v)])
-    out = R.table(["column", "rows", "from", "min", "max", "mean", "values"], rows,
-                  align="lrlrrrl")
+    out = [Table.of(["column", "rows", "from", "min", "max", "mean", "values"], rows,
+                    align="lrlrrrl")]
     if d.files:
         out.append("files")
         for f in d.files:
@@ -199,16 +200,17 @@ def plot(app, line: Line):
                 iv = tuple(m.central(0.95))
             k = crop(m.mass)
             text = plots.marginal(m.values[k], m.density()[k], name=m.name, width=p.width,
-                                  height=20, discrete=m.discrete, interval=iv, color=p.color)
+                                  height=p.room(20), discrete=m.discrete, interval=iv,
+                                  color=p.color)
         else:
             a, b = w[1].text, w[2].text
             i, j = crop(mass.sum(axis=1)), crop(mass.sum(axis=0))
             text = plots.joint(post.grid.axis(a).values[i], post.grid.axis(b).values[j],
-                               mass[i, j], xname=a, yname=b, width=p.width, height=24,
-                               color=p.color)
+                               mass[i, j], xname=a, yname=b, width=p.width,
+                               height=p.room(24), color=p.color)
     except ValueError as exc:
         raise ShellError(f"cannot draw it: {exc}") from None
-    p.lines(text.splitlines())
+    p.block(text)
 
 
 #: Changes below this are drawn at it (a log axis has no room for 0).
@@ -232,14 +234,14 @@ def plot_refine(app) -> None:
         series["log evidence change"] = [max(v, TINY_CHANGE) for v in ev]
     p = app.printer
     try:
-        text = plots.convergence(x, series, width=p.width, height=16, color=p.color,
-                                 xname="refinement step")
+        text = plots.convergence(x, series, width=p.width, height=p.room(16, keep=4 + len(steps)),
+                                 color=p.color, xname="refinement step")
     except ValueError as exc:
         raise ShellError(f"cannot draw it: {exc}") from None
-    p.lines(text.splitlines())
-    p.lines(R.table(["step", "points", "largest change", "moved"],
-                    [[str(i), R.count(s.points), R.num(s.largest, 2), s.moved]
-                     for i, s in enumerate(steps, 1)], align="rrrl"))
+    p.block(text)
+    p.lines([Table.of(["step", "points", "largest change", "moved"],
+                      [[str(i), R.count(s.points), R.num(s.largest, 2), s.moved]
+                       for i, s in enumerate(steps, 1)], align="rrrl")])
 
 
 def plot_predicted(app, name: str) -> None:
@@ -257,12 +259,13 @@ def plot_predicted(app, name: str) -> None:
     k = crop(dens)
     try:
         text = plots.marginal(values[k], dens[k], name=f"new {name}", width=p.width,
-                              height=20, discrete=pv.discrete, interval=iv, color=p.color)
+                              height=p.room(20, keep=4 if a.now is not None else 3),
+                              discrete=pv.discrete, interval=iv, color=p.color)
     except ValueError as exc:
         raise ShellError(f"cannot draw it: {exc}") from None
     if a.now is not None:
         p.note("drawn for the what-if state")
-    p.lines(text.splitlines())
+    p.block(text)
 
 
 def crop(mass: np.ndarray, tail: float = 1e-4) -> slice:
