@@ -309,6 +309,23 @@ def make_axis(p: Param, lo: float, hi: float, n: int | None = None, *,
 
 
 @dataclass(frozen=True)
+class Block:
+    """A sub-tensor of a grid: rows ``r0 .. r1-1`` (flat over the leading axes) times
+    nodes ``c0 .. c1-1`` of the last axis; flat points ``start .. stop-1``."""
+
+    start: int
+    stop: int
+    r0: int
+    r1: int
+    c0: int
+    c1: int
+
+    @property
+    def shape(self) -> tuple[int, int]:
+        return (self.r1 - self.r0, self.c1 - self.c0)
+
+
+@dataclass(frozen=True)
 class Grid:
     """A tensor grid: one axis per parameter, in the model's order."""
 
@@ -348,6 +365,30 @@ class Grid:
         block = max(1, int(block))
         for start in range(0, self.size, block):
             yield start, min(self.size, start + block)
+
+    def sub_blocks(self, block: int) -> Iterator["Block"]:
+        """The grid in blocks shaped as sub-tensors, each about `block` points: a range of
+        rows (flat indices over every axis but the last) times the whole last axis, or,
+        where the last axis alone is longer than `block`, one row times a range of it.
+        Blocks follow the flat order, so each is also a range of flat indices."""
+        block = max(1, int(block))
+        cols = self.axes[-1].n
+        lead = self.size // cols
+        if cols <= block:
+            step = max(1, block // cols)
+            for r0 in range(0, lead, step):
+                r1 = min(lead, r0 + step)
+                yield Block(r0 * cols, r1 * cols, r0, r1, 0, cols)
+            return
+        for r in range(lead):
+            for c0 in range(0, cols, block):
+                c1 = min(cols, c0 + block)
+                yield Block(r * cols + c0, r * cols + c1, r, r + 1, c0, c1)
+
+    @property
+    def lead_shape(self) -> tuple[int, ...]:
+        """The shape of every axis but the last (the rows of a block)."""
+        return self.shape[:-1]
 
     def indices(self, start: int, stop: int) -> tuple[np.ndarray, ...]:
         """Per-axis node indices of flat points ``start .. stop-1``."""

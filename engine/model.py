@@ -326,6 +326,9 @@ class ParamFunction:
     fn: Callable
     index: tuple[int, ...]  # which parameters it reads, in order
     boolean: bool = False
+    #: The expression `fn` was made from, in placeholders ``_t0, _t1, ...`` standing
+    #: for the parameters of `index` (for laying the pass out on a tensor grid).
+    source: sp.Basic | None = field(default=None, repr=False, compare=False)
 
     def __call__(self, theta: Sequence[np.ndarray]) -> np.ndarray:
         n = theta[0].shape[0] if theta else 1
@@ -341,7 +344,7 @@ def param_function(expr: sp.Basic, params: Sequence[Param]) -> ParamFunction:
     ph = _placeholders("t", len(used))
     e = expr.xreplace({syms[i]: ph[k] for k, i in enumerate(used)})
     boolean = isinstance(expr, sp.logic.boolalg.Boolean) and not isinstance(expr, sp.Expr)
-    return ParamFunction(_lambdify(ph, e), tuple(used), boolean)
+    return ParamFunction(_lambdify(ph, e), tuple(used), boolean, e)
 
 
 @dataclass(frozen=True)
@@ -412,6 +415,11 @@ class ReducedTerm:
     #: lose more than about `tol` to cancellation are summed row by row instead.
     magnitude: Callable | None = None
     tol: float = 1e-8
+    #: `fn`, its conditions and `magnitude` as expressions in ``_t0, ...`` (the
+    #: parameters of `index`) and ``_s0, ...`` (the statistics), for the tensor pass.
+    source: sp.Expr | None = field(default=None, repr=False, compare=False)
+    cond_source: sp.Basic | None = field(default=None, repr=False, compare=False)
+    magnitude_source: sp.Expr | None = field(default=None, repr=False, compare=False)
 
     def restat(self, data: dict[str, np.ndarray], rows: int) -> "ReducedTerm":
         """The same term over other rows (a dict of column arrays of length `rows`).
@@ -420,7 +428,7 @@ class ReducedTerm:
         with a fresh compile instead)."""
         # the row-wise form holds the original rows: it cannot stand in for these
         return replace(self, stats=tuple(d.value(data, rows) for d in self.defs),
-                       magnitude=None)
+                       magnitude=None, magnitude_source=None)
 
     def __call__(self, theta: Sequence[np.ndarray]) -> np.ndarray:
         n = theta[0].shape[0] if theta else 1
@@ -1019,14 +1027,17 @@ def _sum_terms(expr, conds, params, csyms, colvals, *, reduce: bool = True,
         cp = _placeholders("c", len(ucols))
         stat_fns.append(StatDef(r.kind, _lambdify(cp, r.expr.xreplace(
             {csyms[j]: cp[k] for k, j in enumerate(ucols)})), tuple(csyms[j].name for j in ucols)))
-    mfn = None
+    mfn = mag = None
     if separable is not None:
         # the reduced textbook form cancels at extreme parameters (a shape of 1e15):
         # its terms' magnitudes say where, and there the stable form is summed instead
-        mag = sp.Add(*[sp.Abs(t) for t in sp.Add.make_args(red.total)])
-        mfn = _lambdify(tp + ssyms, mag.xreplace(sub))
+        mag = sp.Add(*[sp.Abs(t) for t in sp.Add.make_args(red.total)]).xreplace(sub)
+        mfn = _lambdify(tp + ssyms, mag)
     out: list[Term] = [ReducedTerm(fn, tuple(used), red.stats, cfn, fallback, tuple(stat_fns),
-                                   mfn, 1e-8 * max(1.0, fallback.rows ** 0.5))]
+                                   mfn, 1e-8 * max(1.0, fallback.rows ** 0.5),
+                                   red.total.xreplace(sub),
+                                   sp.And(*red.conds).xreplace(sub) if red.conds else None,
+                                   mag)]
     if red.remainder != 0 or red.remainder_conds:
         out.append(_row_term(red.remainder, list(red.remainder_conds), psyms, csyms, colvals))
     return out

@@ -20,7 +20,8 @@ import numpy as np
 from scipy import interpolate, optimize
 
 from .errors import ComputeError, GridError
-from .grid import Axis, Grid, check_grid
+from . import layout
+from .grid import Axis, Block, Grid, check_grid
 from .model import Compiled
 
 #: Default number of grid points per block. Measured on this kind of machine (2 cores):
@@ -467,7 +468,7 @@ class Posterior:
     coarse_moments : tuple of LevelMoments
         The same moments on the nested coarse grids.
     pairs : dict of (int, int) to ndarray
-        2-D marginal node masses, shape (n_i, n_j).
+        2-D marginal node masses (summing to 1), shape (n_i, n_j).
     best : dict of str to float
         The grid point of highest posterior density.
     best_logp : float
@@ -736,6 +737,158 @@ class _Sums:
         self.S2[level] += tw.T @ theta_c
 
 
+class _TensorSums:
+    """The sums of `_Sums`, accumulated over blocks shaped as sub-tensors.
+
+    A block's density ``W = exp(lp - M)`` is a (rows, cols) matrix; every level's
+    weight is a product of one weight per axis, so the sums are contractions: ``W @ X``
+    (X: the last axis's level weights, and those times its centred values) gives each
+    row's sums, the rows' level weights ``rho`` finish the leading marginals, the mass
+    and the cross moments; ``rho.T @ W`` gives the last axis's marginals. No exponential
+    beyond ``W`` itself, no index arithmetic per point. The weights are kept apart from
+    the density (scaled to at most 1 on each axis, their logs' maxima summed in `off`),
+    which is safe while the log weights span less than `SPAN` on all axes together.
+    """
+
+    SPAN = 300.0
+
+    @classmethod
+    def fits(cls, grid: Grid) -> bool:
+        span = 0.0
+        for a in grid.axes:
+            lw = a.logw[np.isfinite(a.logw)]
+            if lw.size != a.n:
+                return False
+            span += float(lw.max() - lw.min())
+        return span < cls.SPAN
+
+    def __init__(self, grid: Grid, pairs: Sequence[tuple[int, int]]):
+        d = len(grid.axes)
+        L = grid.levels
+        self.grid, self.d, self.L = grid, d, L
+        self.Mlp = -np.inf
+        self.Z = np.zeros(L + 1)
+        self.marg = [np.zeros((L + 1, a.n)) for a in grid.axes]
+        self.cross = np.zeros((L + 1, d, d))
+        self.pairs = {p: np.zeros((grid.axes[p[0]].n, grid.axes[p[1]].n)) for p in pairs}
+        self.centre = np.array([a.values[a.n // 2] for a in grid.axes])
+        self.off = 0.0
+        self.wl, self.tc = [], []
+        for a, c in zip(grid.axes, self.centre):
+            top = float(a.logw.max())
+            self.off += top
+            w = np.empty((L + 1, a.n))
+            w[0] = np.exp(a.logw - top)
+            for lev in range(L):
+                w[lev + 1] = np.exp(a.coarse[lev] - top)
+            self.wl.append(w)
+            self.tc.append(a.values - c)
+        wlast = self.wl[-1]
+        self.X = np.ascontiguousarray(np.concatenate([wlast, wlast * self.tc[-1]]).T)
+        self.lead_shape = grid.lead_shape
+        self.n_lead = grid.size // grid.axes[-1].n
+        self._table = self._rows(0, self.n_lead) if self.n_lead <= (1 << 20) else None
+
+    def _rows(self, r0: int, r1: int):
+        """Per row ``r0 .. r1-1``: leading node indices, level weights (rows, L+1) and
+        centred values (rows, d-1)."""
+        n = r1 - r0
+        if self.d == 1:
+            return (), np.ones((n, self.L + 1)), np.zeros((n, 0))
+        idx = np.unravel_index(np.arange(r0, r1), self.lead_shape)
+        rho = np.ones((n, self.L + 1))
+        theta = np.empty((n, self.d - 1))
+        for a, ix in enumerate(idx):
+            rho *= self.wl[a][:, ix].T
+            theta[:, a] = self.tc[a][ix]
+        return idx, rho, theta
+
+    def rows(self, r0: int, r1: int):
+        if self._table is None:
+            return self._rows(r0, r1)
+        idx, rho, theta = self._table
+        return tuple(i[r0:r1] for i in idx), rho[r0:r1], theta[r0:r1]
+
+    def rescale(self, new_m: float):
+        if self.Mlp == -np.inf:
+            self.Mlp = new_m
+            return
+        f = math.exp(self.Mlp - new_m)
+        self.Z *= f
+        for m in self.marg:
+            m *= f
+        self.cross *= f
+        for p in self.pairs.values():
+            p *= f
+        self.Mlp = new_m
+
+    def add(self, blk: Block, lp: np.ndarray, top: float) -> None:
+        """Add block `blk` (log-density `lp`, shape (rows, cols), its largest value `top`;
+        `lp` is overwritten) to every level's sums."""
+        if top > self.Mlp and np.isfinite(top):
+            self.rescale(top)
+        if not np.isfinite(self.Mlp):
+            return
+        with np.errstate(over="ignore", invalid="ignore"):
+            W = np.subtract(lp, self.Mlp, out=lp)
+            np.exp(W, out=W)
+            self._add(blk, W)
+
+    def _add(self, blk: Block, W: np.ndarray) -> None:
+        L1 = self.L + 1
+        c0, c1 = blk.c0, blk.c1
+        idx, rho, theta = self.rows(blk.r0, blk.r1)
+        U = W @ self.X[c0:c1]                 # (rows, 2 (L+1)): row sums, per level
+        V = rho.T @ W                         # (L+1, cols): column sums, per level
+        Q = rho * U[:, :L1]                   # (rows, L+1): mass of each row, per level
+        self.Z += Q.sum(axis=0)
+        wlast = self.wl[-1][:, c0:c1]
+        self.marg[-1][:, c0:c1] += V * wlast
+        if self.d == 1:
+            return
+        last = self.d - 1
+        for a, ix in enumerate(idx):
+            m = self.marg[a]
+            for lev in range(L1):
+                m[lev] += np.bincount(ix, weights=Q[:, lev], minlength=m.shape[1])
+        # cross moments about the centre: leading pairs from the rows' masses, a leading
+        # axis with the last from the rows' sums of the last axis's centred values
+        self.cross[:, :last, :last] += np.einsum("rl,ra,rb->lab", Q, theta, theta)
+        self.cross[:, :last, last] += np.einsum("rl,ra->la", rho * U[:, L1:], theta)
+        for (a, b), arr in self.pairs.items():
+            if b != last:
+                nb = arr.shape[1]
+                arr += np.bincount(idx[a] * nb + idx[b], weights=Q[:, 0],
+                                   minlength=arr.size).reshape(arr.shape)
+                continue
+            ia = idx[a]
+            view = arr[:, c0:c1]
+            if ia[0] == ia[-1] and np.all(ia == ia[0]):
+                view[ia[0]] += V[0] * wlast[0]
+                continue
+            starts = np.flatnonzero(np.concatenate([[True], ia[1:] != ia[:-1]]))
+            S = np.add.reduceat(W * rho[:, :1], starts, axis=0) * wlast[0]
+            np.add.at(view, ia[starts], S)
+
+    def finish(self) -> _Sums:
+        """The sums as `_Sums` holds them (first and second moments about the centre)."""
+        out = _Sums.__new__(_Sums)
+        d, L1 = self.d, self.L + 1
+        out.L, out.Z, out.marg, out.pairs, out.centre = self.L, self.Z, self.marg, self.pairs, \
+            self.centre
+        out.M = self.Mlp + self.off if np.isfinite(self.Mlp) else -np.inf
+        out.S1 = np.zeros((L1, d))
+        out.S2 = np.zeros((L1, d, d))
+        with np.errstate(over="ignore", invalid="ignore"):
+            for a in range(d):
+                out.S1[:, a] = self.marg[a] @ self.tc[a]
+                out.S2[:, a, a] = self.marg[a] @ (self.tc[a] ** 2)
+            for a in range(d):
+                for b in range(a + 1, d):
+                    out.S2[:, a, b] = out.S2[:, b, a] = self.cross[:, a, b]
+        return out
+
+
 class _Watch:
     """What the pass notes besides the sums.
 
@@ -779,6 +932,34 @@ class _Watch:
         if lp[k] > self.best_lp:
             self.best_lp, self.best_flat = float(lp[k]), start + k
 
+    def see_block(self, grid: Grid, blk: Block, lp: np.ndarray, k: int,
+                  neginf: bool | None) -> float:
+        """Note block `blk` (log-density `lp` (rows, cols), NaN already turned to -inf,
+        largest at flat position `k`); refuse +inf; the block's largest value."""
+        top = float(lp.flat[k])
+        if top == np.inf:
+            raise ComputeError("the log-density is +inf at " + _point_text(grid.point(blk.start + k)) +
+                               " (the density is unbounded there); keep the grid away from that "
+                               "point or grid it on its log / logit scale")
+        if self.logp is not None:
+            self.logp[blk.start:blk.stop] = lp.reshape(-1)
+        if top == -np.inf:
+            self.zero += lp.size
+        elif neginf is None or neginf:
+            self.zero += int(np.count_nonzero(np.isneginf(lp)))
+        if top > self.best_lp:
+            self.best_lp, self.best_flat = top, blk.start + k
+        return top
+
+    def nan_block(self, blk: Block, lp: np.ndarray) -> int:
+        """Count and clear the NaNs of block `lp`; its new argmax."""
+        bad = np.isnan(lp)
+        self.nan_count += int(bad.sum())
+        if self.nan_first is None:
+            self.nan_first = blk.start + int(np.argmax(bad))
+        lp[bad] = -np.inf
+        return int(np.argmax(lp))
+
     def check(self, grid: Grid, sums: _Sums) -> None:
         """Refuse a pass that met NaN, or found no mass."""
         if self.nan_count:
@@ -819,17 +1000,37 @@ class _Stored:
     def __call__(self, start: int, stop: int, idx, theta) -> np.ndarray:
         return np.array(self.logp[start:stop], dtype=float)
 
+    def tensor(self, grid: Grid, blk: Block):
+        return np.array(self.logp[blk.start:blk.stop], dtype=float).reshape(blk.shape), True, None
+
 
 class _Fresh:
-    """Block source: the model evaluated at every point."""
+    """Block source: the model evaluated at every point (on tensor blocks, laid out
+    by `engine.layout`)."""
 
     def __init__(self, compiled: Compiled):
         self.compiled = compiled
         self.evaluated = 0
+        self.on_grid = None
 
     def __call__(self, start: int, stop: int, idx, theta) -> np.ndarray:
         self.evaluated += stop - start
         return evaluate_block(self.compiled, theta)
+
+    def tensor(self, grid: Grid, blk: Block):
+        """The block's log-density (rows, cols), whether it was evaluated exactly, and
+        whether it may hold -inf (None: unknown)."""
+        if self.on_grid is None:
+            self.on_grid = layout.on_grid(self.compiled, grid)
+        self.evaluated += blk.stop - blk.start
+        lp, neginf = self.on_grid.block(blk)
+        if lp is None:
+            return self.exact(grid, blk), True, None
+        return lp, False, neginf
+
+    def exact(self, grid: Grid, blk: Block) -> np.ndarray:
+        theta = _block_theta(grid, grid.indices(blk.start, blk.stop))
+        return evaluate_block(self.compiled, theta).reshape(blk.shape)
 
 
 class _Nested:
@@ -856,6 +1057,11 @@ class _Nested:
             lp[fresh] = evaluate_block(self.compiled, [t[fresh] for t in theta])
         self.evaluated += int(fresh.sum())
         return lp
+
+    def tensor(self, grid: Grid, blk: Block):
+        idx = grid.indices(blk.start, blk.stop)
+        lp = self(blk.start, blk.stop, idx, _block_theta(grid, idx))
+        return lp.reshape(blk.shape), True, None
 
 
 def _block_source(compiled: Compiled, grid: Grid, reuse: "Posterior | None",
@@ -929,20 +1135,46 @@ def compute(compiled: Compiled, grid: Grid, *, block: int = BLOCK,
     check_grid(grid, compiled.params)
     pairs = _default_pairs(grid) if pairs is None else pairs
     source = _block_source(compiled, grid, reuse, logp)
-    sums = _Sums(grid, pairs)
     watch = _Watch(grid, grid.size <= STORE_LIMIT if store is None else store)
-    for start, stop in grid.blocks(block):
-        idx = grid.indices(start, stop)
-        theta = _block_theta(grid, idx)
-        lp = source(start, stop, idx, theta)
-        watch.see(grid, start, stop, lp)
-        sums.add_block(grid, idx, theta, lp)
-        if progress is not None:
-            progress(stop, grid.size)
+    if _TensorSums.fits(grid):
+        tsums = _TensorSums(grid, pairs)
+        for blk in grid.sub_blocks(block):
+            lp, k, neginf = _tensor_block(source, grid, blk, watch)
+            top = watch.see_block(grid, blk, lp, k, neginf)
+            tsums.add(blk, lp, top)
+            if progress is not None:
+                progress(blk.stop, grid.size)
+        sums = tsums.finish()
+    else:
+        sums = _Sums(grid, pairs)
+        for start, stop in grid.blocks(block):
+            idx = grid.indices(start, stop)
+            theta = _block_theta(grid, idx)
+            lp = source(start, stop, idx, theta)
+            watch.see(grid, start, stop, lp)
+            sums.add_block(grid, idx, theta, lp)
+            if progress is not None:
+                progress(stop, grid.size)
     watch.check(grid, sums)
     with np.errstate(all="ignore"):
         post = _finish(source.compiled, grid, sums, watch, time.perf_counter() - t0)
     return replace(post, evaluated=source.evaluated)
+
+
+def _tensor_block(source, grid: Grid, blk: Block, watch: _Watch):
+    """A block's log-density (rows, cols) with NaN turned to -inf and counted, the flat
+    position of its largest value, and whether it may hold -inf. A laid-out block that
+    meets NaN is evaluated again exactly (so that a zero prior wins over a NaN
+    likelihood, as in `evaluate_block`)."""
+    lp, exact, neginf = source.tensor(grid, blk)
+    k = int(np.argmax(lp))
+    if lp.flat[k] != lp.flat[k] and not exact:
+        lp, neginf = source.exact(grid, blk), None
+        k = int(np.argmax(lp))
+    if lp.flat[k] != lp.flat[k]:
+        k = watch.nan_block(blk, lp)
+        neginf = None
+    return lp, k, neginf
 
 
 def _nesting(grid: Grid, old: "Posterior") -> list[np.ndarray] | None:
@@ -991,8 +1223,10 @@ def _finish(compiled: Compiled, grid: Grid, sums: _Sums, watch: _Watch, seconds:
     if log_ev is not None and log_ev.error is not None:
         # the mass beyond the grid is missing from the evidence too
         log_ev = replace(log_ev, error=log_ev.error + diag.missing)
+    # the 2-D marginals as node masses summing to 1, like the 1-D ones
+    pairs = {k: v / sums.Z[0] for k, v in sums.pairs.items()}
     return Posterior(grid, compiled, log_mass, log_ev, marg, coarse, moments[0].mean,
-                     moments[0].cov, tuple(moments[1:len(coarse) + 1]), dict(sums.pairs),
+                     moments[0].cov, tuple(moments[1:len(coarse) + 1]), pairs,
                      grid.point(watch.best_flat), watch.best_lp, diag, seconds, watch.logp,
                      prior_norm)
 

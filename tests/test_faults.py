@@ -35,8 +35,8 @@ _ANSI = re.compile(r"\x1b\[[0-?]*[ -/]*[@-~]|\x1b[()][0-9A-Za-z]|\x1b[=>]|\r")
 # the textbook normal mean; common practice)
 SMALL = ["param a real", "param b real", "prior a ~ normal(1.5, 0.5)", "prior b ~ normal(0, 1)",
          "grid a -2 5 61", "grid b -5 5 61", "compute", "mean a"]
-#: Axes that make a compute of several seconds (36 million points).
-LONG = ["grid a -2 5 6001", "grid b -5 5 6001"]
+#: Axes that make a compute of several seconds (400 million points).
+LONG = ["grid a -2 5 20001", "grid b -5 5 20001"]
 
 
 class Terminal:
