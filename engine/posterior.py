@@ -866,9 +866,15 @@ class _TensorSums:
             if ia[0] == ia[-1] and np.all(ia == ia[0]):
                 view[ia[0]] += V[0] * wlast[0]
                 continue
+            # rows come in runs of one node of axis a, whose nodes follow each other
+            # (but where the axis starts again): a few slices of consecutive nodes
             starts = np.flatnonzero(np.concatenate([[True], ia[1:] != ia[:-1]]))
-            S = np.add.reduceat(W * rho[:, :1], starts, axis=0) * wlast[0]
-            np.add.at(view, ia[starts], S)
+            S = np.add.reduceat(W * rho[:, :1], starts, axis=0)
+            S *= wlast[0]
+            vals = ia[starts]
+            cuts = np.flatnonzero(np.diff(vals) != 1) + 1
+            for lo, hi in zip(np.concatenate([[0], cuts]), np.concatenate([cuts, [vals.size]])):
+                view[vals[lo]:vals[lo] + hi - lo] += S[lo:hi]
 
     def finish(self) -> _Sums:
         """The sums as `_Sums` holds them (first and second moments about the centre)."""
