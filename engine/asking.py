@@ -13,7 +13,7 @@ import math
 import numpy as np
 import sympy as sp
 
-from . import plan, questions, runs
+from . import framing, plan, questions, runs
 from .edits import future_rows
 from .errors import ComputeError
 from .expr import parse
@@ -57,6 +57,7 @@ def _predicted_itself(s: State, e: sp.Basic) -> Prediction | None:
 def _predictive(s: State, pr: Prediction, budget_seconds: float
                 ) -> tuple[Outcome, Predictive]:
     """The fresh posterior's outcome, and the predictive of `pr` under it."""
+    framing.refuse(s, "a prediction")
     got = fresh(s, budget_seconds=budget_seconds)
     post = got.result.posterior
     return got, predictive(post, pr.name, pr.family, pr.args, got.state.model)
@@ -71,6 +72,7 @@ def _answer(got: Outcome, kind: str, label: str, detail, notes=()) -> Outcome:
 # the summaries
 
 def summary(s: State, *, budget_seconds: float) -> Outcome:
+    framing.refuse(s, "`summary`")
     got = fresh(s, budget_seconds=budget_seconds)
     post = got.result.posterior
     rows = tuple(SummaryRow(name, post.param_mean(name), post.param_sd(name),
@@ -91,6 +93,7 @@ def interval(s: State, name: str, level: float = 0.95, kind: str = "central", *,
         return _answer(got, "interval", f"{level:g} central interval of new {name}",
                        Range(pv.quantile(a), pv.quantile(1 - a), None, None, level, kind,
                              predictive=pv))
+    framing.refuse(s, "an interval")
     got = fresh(s, budget_seconds=budget_seconds)
     s.model.param(name)
     iv: Interval = got.result.posterior.interval(name, level, kind)
@@ -104,6 +107,7 @@ def interval(s: State, name: str, level: float = 0.95, kind: str = "central", *,
 
 
 def mode(s: State, *, budget_seconds: float) -> Outcome:
+    framing.refuse(s, "`mode`")
     got = fresh(s, budget_seconds=budget_seconds)
     post = got.result.posterior
     m = questions.mode(post)
@@ -133,6 +137,7 @@ def prob(s: State, text: str, *, budget_seconds: float) -> Outcome:
         got, pv = _predictive(s, pr, budget_seconds)
         return _answer(got, "prob", f"P({text.strip()}) for a new {pr.name}",
                        Number(_predictive_prob(pv, cond, pr.name), predictive=pv))
+    framing.refuse(s, "`prob`")
     got = fresh(s, budget_seconds=budget_seconds)
     est = questions.probability(got.result.posterior, cond)
     return _answer(got, "prob", f"P({text.strip()})", Number(est.value, est.error))
@@ -147,6 +152,8 @@ def moment(s: State, kind: str, text: str, *, budget_seconds: float) -> Outcome:
         value = pv.mean if kind == "mean" else pv.sd
         return _answer(got, kind, f"{kind} of a new {pr.name}",
                        Number(value, scale=pv.sd, predictive=pv))
+    if s.frame_rule is not None:
+        return _frame_moment(s, kind, text, e, budget_seconds)
     got = fresh(s, budget_seconds=budget_seconds)
     post = got.result.posterior
     mo = questions.moments(post, e)
@@ -171,6 +178,19 @@ def _no_moment(post, e: sp.Basic, kind: str) -> NoMoment:
     return NoMoment(kind, reason, post.quantile(e.name, 0.5), iv.lo, iv.hi)
 
 
+def _frame_moment(s: State, kind: str, text: str, e: sp.Basic, budget_seconds: float
+                  ) -> Outcome:
+    """`mean` or `sd` of a parameter on a rule in the frame."""
+    if not (isinstance(e, sp.Symbol) and e.name in s.model.param_names):
+        framing.refuse(s, f"`{kind}` of an expression")
+    got = fresh(s, budget_seconds=budget_seconds)
+    post = got.result.posterior
+    m, sd = post.param_mean(e.name), post.param_sd(e.name)
+    est = m if kind == "mean" else sd
+    return _answer(got, kind, f"{kind} of {text.strip()}",
+                   Number(est.value, est.error, scale=sd.value))
+
+
 def quantile(s: State, text: str, q: float, *, budget_seconds: float) -> Outcome:
     e = _expr(s, text)
     pr = _predicted_itself(s, e)
@@ -178,6 +198,7 @@ def quantile(s: State, text: str, q: float, *, budget_seconds: float) -> Outcome
         got, pv = _predictive(s, pr, budget_seconds)
         return _answer(got, "quantile", f"{q:g} quantile of a new {pr.name}",
                        Number(pv.quantile(q), predictive=pv))
+    framing.refuse(s, "a quantile")
     got = fresh(s, budget_seconds=budget_seconds)
     est = questions.quantile(got.result.posterior, e, q)
     return _answer(got, "quantile", f"{q:g} quantile of {text.strip()}",
@@ -200,6 +221,7 @@ def samplesize(s: State, name: str, width: float, options: SampleSizeOptions, *,
     `name` is at most `width` (average length criterion)."""
     o = options
     s.model.param(name)
+    framing.refuse(s, "`samplesize`")
     use = future_rows(s, o.using) if o.using is not None else None
     got = fresh(s, budget_seconds=budget_seconds)
     res = sample_size(got.result.posterior, got.state.model, name, width, level=o.level,
@@ -257,6 +279,7 @@ def joint(s: State, a: str, b: str, *, budget_seconds: float) -> Outcome:
     would not fit in memory is refused with the figure before anything is
     computed or allocated."""
     pa, pb = s.model.param(a), s.model.param(b)
+    framing.refuse(s, "a joint of two parameters")
     sa, sb = s.spec(a), s.spec(b)
     if sa is not None and sb is not None:
         plan.check_memory([axis_count(pa, sa), axis_count(pb, sb)], pair=(a, b))

@@ -18,6 +18,7 @@ from .edits import checked_name, with_keep
 from .errors import ComputeError, ModelError
 from .posterior import Estimate, Posterior
 from .results import Change, Comparison, Kept
+from .framing import points_of
 from .runs import fresh
 from .state import Outcome, State
 
@@ -34,7 +35,7 @@ def keep(s: State, name: str, *, budget_seconds: float) -> Outcome:
     got = fresh(s, budget_seconds=budget_seconds)
     s, post = got.state, got.result.posterior
     k = Kept(name, post.log_evidence, post.compiled.improper, data_key(s), data_rows(s),
-             model_lines(s), wide_priors(s, post), post.grid.size)
+             model_lines(s), wide_priors(s, post), points_of(post))
     new, replaced = with_keep(s, k)
     ev = (f"log evidence {post.log_evidence.value:.6g}" if post.log_evidence
           else "no evidence (improper prior)")
@@ -119,7 +120,7 @@ def wide_priors(s: State, post: Posterior) -> tuple[str, ...]:
     for p in m.params:
         if p.discrete:
             continue
-        post_sd = post.marginals[p.name].sd
+        post_sd = post.param_sd(p.name).value
         if not post_sd > 0:
             continue
         pr = named.get(p.name)

@@ -23,6 +23,7 @@ from .model import Let, Likelihood, Model, Prior, compile_model, expand_lets, ma
 from .predict import FutureRows
 from .refine import AxisSpec
 from .results import Change, Kept
+from .framerun import FRAME_RULES, rule_choice
 from .rules import RULES
 from .state import Outcome, Prediction, State
 
@@ -268,10 +269,21 @@ def grid(s: State, name: str, lo: float, hi: float, n: int | None = None,
     return Outcome(replace(s, specs=specs), Change(f"grid {_verb(replaced)}: {ax.describe()}"))
 
 
-def rule(s: State, name: str) -> Outcome:
-    if name not in RULES:
-        raise GridError(f"unknown rule `{name}`; known: {', '.join(RULES)}")
-    return Outcome(replace(s, rule=name), Change(f"rule set: {name}"))
+def rule(s: State, name: str, setting: float | None = None) -> Outcome:
+    """A 1-D rule of the tensor grid (`trapezoid`, `simpson` ...), `grid` (the tensor
+    grid with its rule), or a rule in the frame with its setting."""
+    if name in RULES:
+        if setting is not None:
+            raise GridError(f"rule `{name}` takes no setting: the grid's points come from `grid`")
+        return Outcome(replace(s, rule=name, choice=rule_choice("grid")),
+                       Change(f"rule set: {name}"))
+    if name != "grid" and name not in FRAME_RULES:
+        raise GridError(f"unknown rule `{name}`; known: grid, {', '.join(FRAME_RULES)}, "
+                        f"{', '.join(RULES)}")
+    choice = rule_choice(name, setting)
+    what = (f"tensor grid, {s.rule}" if name == "grid" else choice.describe() if
+            setting is not None else f"{name} (raised until the errors meet their targets)")
+    return Outcome(replace(s, choice=choice), Change(f"rule set: {what}"))
 
 
 def reset(s: State) -> Outcome:

@@ -15,7 +15,7 @@ from typing import Callable
 
 import numpy as np
 
-from . import plan
+from . import framing, plan
 from .data import DataSet
 from .edits import data_notes
 from .errors import ComputeError, GridError, QuadratError
@@ -148,7 +148,10 @@ def advice(c: plan.Cost, grid: Grid, budget_seconds: float) -> str:
 
 def compute(s: State, *, budget_seconds: float, progress: Progress = None,
             force: bool = False) -> Outcome:
-    """The posterior on the state's grid: an Outcome with a `ComputeReport`."""
+    """The posterior on the state's grid or frame rule: an Outcome with a
+    `ComputeReport`."""
+    if s.frame_rule is not None:
+        return framing.compute(s, budget_seconds=budget_seconds, progress=progress)
     compiled = s.compiled()
     check_count(s, compiled)
     return _compute_on(s, compiled, sizing(s, compiled), budget_seconds=budget_seconds,
@@ -175,6 +178,8 @@ def fresh(s: State, *, budget_seconds: float) -> Outcome:
     that is cheap; refused with the figure when it is not."""
     if s.current:
         return Outcome(s, Fresh(s.posterior))
+    if s.frame_rule is not None:
+        return framing.fresh(s, budget_seconds=budget_seconds)
     what = "no posterior yet" if s.posterior is None else "the posterior is out of date"
     compiled = s.compiled()
     check_count(s, compiled)
@@ -261,6 +266,7 @@ def refine(s: State, axis: str | None = None, until: float | None = None, *,
            budget_seconds: float, progress: Progress = None) -> Outcome:
     """Refine step by step (computing first if needed): a `RefineReport`; the
     state takes the final posterior and its grid."""
+    framing.refuse(s, "`refine`")
     if axis is not None:
         s.model.param(axis)
     if until is not None and not (until > 0 and math.isfinite(until)):
@@ -280,6 +286,7 @@ def zoom(s: State, mass: float = 1 - 1e-9, *, budget_seconds: float,
          progress: Progress = None, force: bool = False) -> Outcome:
     """Shrink every axis to the region holding `mass` and compute again with the
     same number of points: a `ComputeReport`."""
+    framing.refuse(s, "`zoom`")
     first = computed(s, budget_seconds=budget_seconds, progress=progress)
     s, notes = first.state, first.result.notes
     specs = zoom_specs(first.result.posterior, mass)
@@ -315,7 +322,7 @@ def append(s: State, data: DataSet, message: str, *, budget_seconds: float,
     that keeps its density is updated from the new rows alone, and re-sized when
     the mass moves toward an edge of its grid. A `Change`."""
     post = s.posterior
-    if not s.current or post.logp is None:
+    if not s.current or framing.is_node(post) or post.logp is None:
         return Outcome(replace(s, data=data), Change(message, data_notes(s.model, data)))
     try:
         old_rows = {part.key: part.rows for part in s.compiled().likelihood}

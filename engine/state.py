@@ -18,6 +18,7 @@ from collections import OrderedDict
 from dataclasses import dataclass, field, replace
 
 from .data import DataSet
+from .framerun import NodePosterior, RuleChoice
 from .model import Compiled, Model, compile_model
 from .posterior import Posterior
 from .refine import AxisSpec, RefineStep
@@ -37,6 +38,7 @@ class Basis:
     data: int                       # `DataSet.revision`
     specs: tuple[AxisSpec, ...]
     rule: str
+    choice: RuleChoice | None = None      # a rule in the frame, or the grid
 
 
 @dataclass(frozen=True)
@@ -79,7 +81,8 @@ class State:
     data: DataSet = field(default_factory=DataSet)
     specs: tuple[AxisSpec, ...] = ()      # grids the user set
     rule: str = "trapezoid"
-    posterior: Posterior | None = None
+    choice: RuleChoice | None = None      # `rule grid / hermite / sparse / rotated`; None: not set
+    posterior: Posterior | NodePosterior | None = None
     basis: Basis | None = None            # what the posterior was computed from
     keeps: tuple[Kept, ...] = ()          # by name
     steps: tuple[RefineStep, ...] = ()    # refinement steps of the current posterior
@@ -107,13 +110,18 @@ class State:
     @property
     def own_basis(self) -> Basis:
         """The basis a posterior computed now would have."""
-        return Basis(self.model.revision, self.data.revision, self.specs, self.rule)
+        return Basis(self.model.revision, self.data.revision, self.specs, self.rule, self.choice)
 
     @property
     def current(self) -> bool:
         """Whether the posterior was computed from this state's model, data, grid
         specs and rule."""
         return self.posterior is not None and self.basis == self.own_basis
+
+    @property
+    def frame_rule(self) -> RuleChoice | None:
+        """The rule in the frame `compute` uses, or None for the tensor grid."""
+        return self.choice if self.choice is not None and self.choice.in_frame else None
 
     # -- the compiled model -----------------------------------------------------
     def compiled(self) -> Compiled:
@@ -129,7 +137,7 @@ class State:
         self.memo.put(self.content, compiled)
 
     # -- changes ------------------------------------------------------------------
-    def with_posterior(self, post: Posterior, **changes) -> "State":
+    def with_posterior(self, post: Posterior | NodePosterior, **changes) -> "State":
         """This state (with `changes`) holding `post`, current under its own basis."""
         new = replace(self, posterior=post, **changes)
         return replace(new, basis=new.own_basis)

@@ -25,6 +25,8 @@ from .posterior import Posterior
 from .refine import AxisSpec, RefineStep
 from .results import (Answer, Change, Comparison, ComputeReport, CostReport, Fresh, GridAuto,
                       Joint, Kept, RefineReport, SampleSizeOptions, Status, Summary)
+from .framerun import RuleChoice
+from .framing import points_of
 from .runs import BUDGET_SECONDS, Progress
 from .state import History, Outcome, Prediction, State
 from .whatif import Layer
@@ -89,7 +91,15 @@ class Workspace:
 
     @property
     def rule_name(self) -> str:
-        return self.state.rule
+        """The rule `compute` uses: a rule in the frame with its setting, or the
+        tensor grid's 1-D rule."""
+        fr = self.state.frame_rule
+        return fr.describe() if fr is not None else self.state.rule
+
+    @property
+    def frame_rule(self) -> RuleChoice | None:
+        """The rule in the frame `compute` uses, or None for the tensor grid."""
+        return self.state.frame_rule
 
     def spec(self, name: str) -> AxisSpec | None:
         """The grid the user set for parameter `name`, if any."""
@@ -104,7 +114,7 @@ class Workspace:
         post = s.posterior
         st = "absent" if post is None else "current" if s.current else "out of date"
         ev = post.log_evidence.value if post is not None and post.log_evidence else None
-        return Status(s.model.param_names, post.grid.size if post else None, st, ev,
+        return Status(s.model.param_names, points_of(post) if post else None, st, ev,
                       self.in_whatif)
 
     def resolve(self, path: str) -> str:
@@ -161,8 +171,8 @@ class Workspace:
              scale: str | None = None) -> Change:
         return self._commit(edits.grid(self.state, name, lo, hi, n, scale))
 
-    def rule(self, name: str) -> Change:
-        return self._commit(edits.rule(self.state, name))
+    def rule(self, name: str, setting: float | None = None) -> Change:
+        return self._commit(edits.rule(self.state, name, setting))
 
     def reset(self) -> Change:
         return self._commit(edits.reset(self.state))

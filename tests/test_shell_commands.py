@@ -217,7 +217,8 @@ def test_rule(model):
     assert model.take()[0] == "rule set: simpson\n"
     assert model.app.ws.state.rule == "simpson"
     assert model.error("rule simple") == (
-        "error: column 6: unknown rule `simple`; known: trapezoid, midpoint, simpson, gauss")
+        "error: column 6: unknown rule `simple`; known: grid, hermite, sparse, rotated, trapezoid, "
+        "midpoint, simpson, gauss")
 
 
 def test_cost_points_and_memory(model):

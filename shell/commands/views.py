@@ -9,6 +9,7 @@ import numpy as np
 
 from engine import export as E
 from engine.errors import QuadratError
+from engine.framing import is_node
 from engine.model import ReducedTerm
 
 from .. import __version__
@@ -131,7 +132,11 @@ def grid_lines(ws) -> list[str]:
             sc = f", {spec.scale} scale" if spec.scale else ""
             out.append(f"  {n}: {R.num(spec.lo)} .. {R.num(spec.hi)}{pts}{sc}")
     post = ws.posterior_now
-    if post is not None:
+    if post is not None and is_node(post):
+        st = ws.status().posterior
+        out.append(f"the posterior ({st}) was computed on rule {post.label}, "
+                   f"{R.count(post.points)} evaluations")
+    elif post is not None:
         st = ws.status().posterior
         out.append(f"the posterior ({st}) was computed on {R.count(post.grid.size)} points:")
         for a in post.grid.axes:
@@ -181,6 +186,9 @@ def plot(app, line: Line):
             raise ShellError(f"no parameter `{x.text}`", x.column)
     if len(w) == 3 and w[1].text == w[2].text:
         raise ShellError("a joint plot needs two different parameters", w[2].column)
+    if app.ws.frame_rule is not None:
+        raise ShellError(f"`plot` of a parameter is not drawn on rule `{app.ws.frame_rule.name}` "
+                         "yet: `rule grid` draws it")
     if len(w) == 3:
         # refused before anything is computed when the joint would not fit in memory
         got = app.ws.joint(w[1].text, w[2].text)
