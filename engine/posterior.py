@@ -751,9 +751,13 @@ class _TensorSums:
     """
 
     SPAN = 300.0
+    #: Below this many points the flat pass is quicker (the layout has a fixed cost).
+    SMALL = 1 << 14
 
     @classmethod
     def fits(cls, grid: Grid) -> bool:
+        if grid.size < cls.SMALL:
+            return False
         span = 0.0
         for a in grid.axes:
             lw = a.logw[np.isfinite(a.logw)]
@@ -861,20 +865,34 @@ class _TensorSums:
                 arr += np.bincount(idx[a] * nb + idx[b], weights=Q[:, 0],
                                    minlength=arr.size).reshape(arr.shape)
                 continue
-            ia = idx[a]
-            view = arr[:, c0:c1]
-            if ia[0] == ia[-1] and np.all(ia == ia[0]):
-                view[ia[0]] += V[0] * wlast[0]
-                continue
-            # rows come in runs of one node of axis a, whose nodes follow each other
-            # (but where the axis starts again): a few slices of consecutive nodes
-            starts = np.flatnonzero(np.concatenate([[True], ia[1:] != ia[:-1]]))
-            S = np.add.reduceat(W * rho[:, :1], starts, axis=0)
-            S *= wlast[0]
-            vals = ia[starts]
-            cuts = np.flatnonzero(np.diff(vals) != 1) + 1
-            for lo, hi in zip(np.concatenate([[0], cuts]), np.concatenate([cuts, [vals.size]])):
-                view[vals[lo]:vals[lo] + hi - lo] += S[lo:hi]
+            wa = self.wl[a][0][idx[a]]
+            self._pair_with_last(arr[:, c0:c1], idx[a], wa, rho[:, 0] / wa, V, W)
+
+    def _pair_with_last(self, view: np.ndarray, ia: np.ndarray, wa: np.ndarray,
+                        other: np.ndarray, V: np.ndarray, W: np.ndarray) -> None:
+        """Add the block to the 2-D marginal of a leading axis (node `ia` of each row)
+        and the last axis, kept without either axis's own weights (`finish` applies
+        them): each row weighs `other`, the weights of the remaining leading axes."""
+        if ia[0] == ia[-1] and np.all(ia == ia[0]):
+            view[ia[0]] += V[0] / wa[0]     # the rows' column sums, known already
+            return
+        starts = np.flatnonzero(np.concatenate([[True], ia[1:] != ia[:-1]]))
+        vals = ia[starts]
+        if starts.size <= 8:
+            # a few runs of one node each: one product with their indicator columns
+            A = np.zeros((ia.size, starts.size))
+            A[np.arange(ia.size), np.searchsorted(starts, np.arange(ia.size), "right") - 1] = other
+            S = A.T @ W
+            for k, v in enumerate(vals):
+                view[v] += S[k]
+            return
+        # many runs: rows of consecutive nodes (the axis before the last), in a few
+        # slices where the axis starts again
+        S = np.add.reduceat(W * other[:, None], starts, axis=0) if starts.size < ia.size \
+            else W * other[:, None]
+        cuts = np.flatnonzero(np.diff(vals) != 1) + 1
+        for lo, hi in zip(np.concatenate([[0], cuts]), np.concatenate([cuts, [vals.size]])):
+            view[vals[lo]:vals[lo] + hi - lo] += S[lo:hi]
 
     def finish(self) -> _Sums:
         """The sums as `_Sums` holds them (first and second moments about the centre)."""
@@ -883,6 +901,9 @@ class _TensorSums:
         out.L, out.Z, out.marg, out.pairs, out.centre = self.L, self.Z, self.marg, self.pairs, \
             self.centre
         out.M = self.Mlp + self.off if np.isfinite(self.Mlp) else -np.inf
+        last = d - 1
+        out.pairs = {(a, b): arr * self.wl[a][0][:, None] * self.wl[-1][0][None, :]
+                     if b == last else arr for (a, b), arr in self.pairs.items()}
         out.S1 = np.zeros((L1, d))
         out.S2 = np.zeros((L1, d, d))
         with np.errstate(over="ignore", invalid="ignore"):
