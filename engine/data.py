@@ -131,6 +131,30 @@ class DataSet:
             ds = ds.append(table.prefix + name, vals)
         return replace(ds, files=ds.files + (record,))
 
+    def with_value(self, name: str, row: int, value: float) -> "DataSet":
+        """Column `name` with the value in `row` (0-based) replaced."""
+        col = self.get(name)
+        new = np.array(col.values)
+        new[row] = value
+        return self.with_column(replace(col, values=_frozen(new)))[0]
+
+    def row_group(self, name: str) -> tuple[str, ...]:
+        """The columns a row of column `name` belongs to: every column of its table
+        that still has as many rows, or the column alone when it was typed."""
+        col = self.get(name)
+        if col.table is None:
+            return (name,)
+        return tuple(c.name for c in self.columns
+                     if c.table == col.table and c.rows == col.rows)
+
+    def without_row(self, name: str, row: int) -> "DataSet":
+        """Row `row` (0-based) taken out of every column of `row_group(name)`."""
+        ds = self
+        for n in self.row_group(name):
+            col = ds.get(n)
+            ds = ds.with_column(replace(col, values=_frozen(np.delete(col.values, row))))[0]
+        return ds
+
     def table_for_header(self, header: tuple[str, ...], prefix: str | None) -> Table | None:
         for t in reversed(self.tables):
             if t.header == header and (prefix is None or t.prefix == prefix):

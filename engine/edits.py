@@ -15,8 +15,8 @@ from dataclasses import replace
 import sympy as sp
 
 from . import families as fam
-from .data import Column, DataSet, FileRecord, Table, read_csv, typed_column
-from .errors import FormulaError, GridError, ModelError, QuadratError
+from .data import Column, DataSet, FileRecord, Table, parse_number, read_csv, typed_column
+from .errors import DataError, FormulaError, GridError, ModelError, QuadratError
 from .expr import check_name, parse, parse_call
 from .grid import make_axis
 from .model import Let, Likelihood, Model, Prior, compile_model, expand_lets, make_param
@@ -226,6 +226,39 @@ def data_load(s: State, path: str, full: str, prefix: str | None = None) -> Outc
     return Outcome(replace(s, data=data),
                    Change(f"loaded {table.rows} row{'s' if table.rows != 1 else ''} from "
                           f"`{os.path.basename(path)}`: {cols}", data_notes(s.model, data)))
+
+
+def _row(s: State, name: str, row: int, what: str) -> int:
+    """Row `row` (1-based, as counted in the column and its file) of column `name`,
+    checked; returned 0-based."""
+    col = s.data.get(name)
+    if not 1 <= row <= col.rows:
+        raise DataError(f"{what}: `{name}` has {col.rows} row{'s' if col.rows != 1 else ''}; "
+                        f"row {row} is not one of them")
+    return row - 1
+
+
+def data_edit(s: State, name: str, row: int, text: str) -> Outcome:
+    """The value of column `name` in row `row` (1-based) changed to `text`."""
+    what = f"data edit `{name}` row {row}"
+    i = _row(s, name, row, what)
+    value = parse_number(text, what)
+    old = float(s.data.values(name)[i])
+    data = s.data.with_value(name, i, value)
+    return Outcome(replace(s, data=data),
+                   Change(f"changed `{name}` row {row}: {old:g} -> {value:g}", data_notes(s.model, data)))
+
+
+def data_drop(s: State, name: str, row: int) -> Outcome:
+    """Row `row` (1-based) taken out of the table holding column `name`."""
+    i = _row(s, name, row, f"data drop `{name}` row {row}")
+    group = s.data.row_group(name)
+    data = s.data.without_row(name, i)
+    left = data.get(name).rows
+    cols = ", ".join(f"`{c}`" for c in group)
+    return Outcome(replace(s, data=data),
+                   Change(f"dropped row {row} of {cols} ({left} row{'s' if left != 1 else ''} "
+                          "now)", data_notes(s.model, data)))
 
 
 def appended_values(s: State, name: str, texts: list[str]) -> tuple[DataSet, str]:

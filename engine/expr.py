@@ -202,18 +202,33 @@ def _check_text(text: str) -> str:
     return text
 
 
+#: A number written as a percentage: digits (not the end of a name) and `%`, with no
+#: operand after it (`%` is no operator of the formula language).
+_PERCENT = re.compile(r"(?<![\w.])((?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)%(?!\s*(?!(?:and|or|not)\b)[\w.(])")
+
+
 def _translate(text: str) -> tuple[str, list[int]]:
-    """Replace ``^`` by ``**``; return the new text and, for each of its
-    characters, the 0-based column it came from."""
+    """Replace ``^`` by ``**`` and a percentage ``5%`` by ``(5/100)``; return the new
+    text and, for each of its characters, the 0-based column it came from."""
     out: list[str] = []
     where: list[int] = []
-    for i, ch in enumerate(text):
+    percent = {m.start(1): m.end(1) for m in _PERCENT.finditer(text)}
+    i = 0
+    while i < len(text):
+        ch = text[i]
+        if i in percent:
+            end = percent[i]
+            out.append("(" + text[i:end] + "/100)")
+            where.extend([i] + list(range(i, end)) + [end] * 5)
+            i = end + 1
+            continue
         if ch == "^":
             out.append("**")
             where.extend([i, i])
         else:
             out.append(ch)
             where.append(i)
+        i += 1
     where.append(len(text))
     return "".join(out), where
 

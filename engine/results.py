@@ -178,7 +178,24 @@ class NoMoment:
         return (None,)
 
 
-Detail = Number | Range | Point | Predicted | Needed | NoMoment
+@dataclass(frozen=True)
+class Levels:
+    """Quantiles of one quantity at several levels, in the order asked."""
+
+    levels: tuple[float, ...]
+    quantiles: tuple[float, ...]
+    quantile_errors: tuple[float | None, ...]
+
+    @property
+    def checked(self) -> tuple[float, ...]:
+        return self.quantiles
+
+    @property
+    def errors(self) -> tuple[float | None, ...]:
+        return self.quantile_errors
+
+
+Detail = Number | Range | Point | Predicted | Needed | NoMoment | Levels
 
 
 @dataclass(frozen=True)

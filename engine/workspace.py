@@ -29,7 +29,7 @@ from .framerun import RuleChoice
 from .framing import points_of
 from .runs import BUDGET_SECONDS, Progress
 from .state import History, Outcome, Prediction, State
-from .whatif import Layer
+from .whatif import Layer, data_differences
 
 
 class Workspace:
@@ -166,6 +166,21 @@ class Workspace:
 
     def data_load(self, path: str, prefix: str | None = None) -> Change:
         return self._commit(edits.data_load(self.state, path, self.resolve(path), prefix))
+
+    def data_edit(self, name: str, row: int, text: str) -> Change:
+        """The value of column `name` in row `row` (1-based) changed."""
+        return self._commit(edits.data_edit(self.state, name, row, text))
+
+    def data_drop(self, name: str, row: int) -> Change:
+        """Row `row` (1-based) taken out of the table holding column `name`."""
+        return self._commit(edits.data_drop(self.state, name, row))
+
+    def whatif_rows(self) -> tuple[str, ...]:
+        """Inside a what-if layer: which rows of the data differ from things as they
+        are, in words (empty outside a layer or when the data are the same)."""
+        if self._layer is None:
+            return ()
+        return data_differences(self._layer.base.data, self.state.data)
 
     def grid(self, name: str, lo: float, hi: float, n: int | None = None,
              scale: str | None = None) -> Change:

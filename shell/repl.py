@@ -18,7 +18,7 @@ from .completer import Names, ShellCompleter
 from .keys import bindings
 from .paths import history_file
 from .toolbar import toolbar_text
-from .words import Quit
+from .words import Quit, split_commands
 
 PROMPT = "quadrat> "
 #: The prompt inside a what-if layer.
@@ -125,7 +125,22 @@ class Repl:
             except EOFError:
                 break
             try:
-                self.app.run(text)
+                self.run_line(text)
             except Quit:
                 break
         return 0
+
+    def run_line(self, text: str) -> None:
+        """One typed line: one command, or several separated by `;` as in batch use,
+        run in turn until one fails."""
+        parts = [p for p in split_commands(text) if p.strip()]
+        if len(parts) <= 1:
+            self.app.run(text)
+            return
+        for i, part in enumerate(parts, 1):
+            status = self.app.run(part, f"command {i} of {len(parts)}")
+            if status in ("error", "cancelled") and i < len(parts):
+                left = len(parts) - i
+                self.app.printer.note(f"the {left} command{'s' if left != 1 else ''} after "
+                                      "it on the line did not run")
+                break

@@ -184,6 +184,38 @@ def number(word: Word, what: str) -> float:
     return v
 
 
+def fraction(word: Word, what: str) -> float:
+    """A probability or level strictly between 0 and 1, typed as ``0.95`` or ``95%``.
+
+    A whole number between 1 and 100 is refused with the reading it probably meant
+    (``95`` -> ``95%``), never taken as a percentage silently.
+    """
+    t = word.text
+    if t.endswith("%"):
+        v = number(Word(t[:-1], word.start), what)
+        if not 0 < v < 100:
+            raise ShellError(f"{what} must be between 0% and 100%; got `{t}`", word.column)
+        return v / 100
+    v = number(word, what)
+    if 1 < v < 100 and v == int(v):
+        raise ShellError(f"{what} must be between 0 and 1; for {v:g} percent write `{t}%` or "
+                         f"`{v / 100:g}`", word.column)
+    if not 0 < v < 1:
+        raise ShellError(f"{what} must be between 0 and 1 (or 0% and 100%); got `{t}`",
+                         word.column)
+    return v
+
+
+def is_fraction(text: str) -> bool:
+    """Whether a word reads as a level (``0.9``, ``90%``, ``.05``)."""
+    t = text[:-1] if text.endswith("%") else text
+    try:
+        float(t)
+    except ValueError:
+        return False
+    return t.strip().lower().lstrip("+-") not in ("nan", "inf", "infinity")
+
+
 def whole(word: Word, what: str, *, low: int | None = None) -> int:
     """A whole number typed as a word."""
     v = number(word, what)

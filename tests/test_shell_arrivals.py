@@ -151,8 +151,9 @@ def test_whatif_answers_now_and_what_if_side_by_side(model):
     model("whatif", "data append k = 10, 10, 9")
     model.take()
     model("mean p")
-    header, row = model.take()[0].splitlines()
+    header, row, differ = model.take()[0].splitlines()
     assert header.split() == ["now", "what", "if"]
+    assert differ == "what if differs in: 3 rows appended (`k`)"
     now, whatif = numbers(row.split("mean p", 1)[1])[::2][:2]
     # now beta(11, 24); what if beta(11 + 29, 24 + 1) (conjugacy): scipy.stats.beta
     assert now == shown(POST.mean())
@@ -408,7 +409,8 @@ def test_help_and_completion_of_the_new_commands(model):
     for name in ("whatif", "predict", "samplesize", "keep", "compare"):
         assert COMMANDS[name].group == "arrival" and len(COMMANDS[name].help.split()) >= 30
     assert COMMANDS["data"].usage == ("data [append] NAME = v1, v2, ...  or  "
-                                      "data load | append FILE.csv [as PREFIX]")
+                                      "data load | append FILE.csv [as PREFIX]  or  "
+                                      "data edit COL row N = VALUE  or  data drop COL row N")
     model("keep a", "predict ynew ~ binomial(10, p)")
     names = Names.of(model.app.ws)
 

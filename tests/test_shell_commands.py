@@ -293,7 +293,8 @@ def test_sd_bad(model):
 
 def test_quantile_bad(model):
     assert model.error("quantile p 1.5") == (
-        "error: column 12: quantile level must be between 0 and 1; got `1.5`")
+        "error: column 12: quantile level must be between 0 and 1 (or 0% and 100%); got "
+        "`1.5`")
 
 
 def test_mode_is_the_beta_mode(model):

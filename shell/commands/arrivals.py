@@ -18,7 +18,7 @@ from .. import render as R
 from ..layout import Table
 from ..registry import NOTHING, Slot, command
 from ..replies import Asked, Shown
-from ..words import Line, Segment, ShellError, Word, formula_at, number, whole
+from ..words import Line, Segment, ShellError, Word, formula_at, fraction, number, whole
 from .common import say
 from .model import _TILDE, split_at
 from .questions import answer_lines, checkable, question
@@ -133,13 +133,7 @@ _SS_WORDS = ("width", "level", "max", "sims", "seed", "using", "hpd", "central")
 
 
 def _level(word: Word) -> float:
-    t = word.text
-    v = number(Word(t[:-1], word.start), "level") / 100 if t.endswith("%") \
-        else number(word, "level")
-    if not 0 < v < 1:
-        raise ShellError(f"level must be between 0 and 1 (or 0% and 100%); got `{t}`",
-                         word.column)
-    return v
+    return fraction(word, "level")
 
 
 @dataclass(frozen=True)

@@ -7,17 +7,24 @@ import re
 
 from ..registry import NOTHING, Slot, command
 from ..replies import DataFile, Reply
-from ..words import Line, ShellError, path_word
+from ..words import Line, ShellError, Word, path_word, whole
 from .common import say, with_progress
 
-DATA_USAGE = "data [append] NAME = v1, v2, ...  or  data load | append FILE.csv [as PREFIX]"
+DATA_USAGE = ("data [append] NAME = v1, v2, ...  or  data load | append FILE.csv [as PREFIX]"
+              "  or  data edit COL row N = VALUE  or  data drop COL row N")
+EDIT_USAGE = "data edit COL row N = VALUE"
+DROP_USAGE = "data drop COL row N"
 APPEND_USAGE = "data append NAME = v1, v2, ...  or  data append FILE.csv [as PREFIX]"
 _TYPED = re.compile(r"^(?P<name>[^\s=]+)\s*=(?!=)(?P<rest>.*)$", re.S)
 
 
 def _complete_data(words, text):
     if len(words) == 1:
-        return Slot(words=("load", "append"), columns=True)
+        return Slot(words=("load", "append", "edit", "drop"), columns=True)
+    if words[1] in ("edit", "drop"):
+        if len(words) == 2:
+            return Slot(columns=True)
+        return Slot(words=("row",)) if len(words) == 3 else NOTHING
     if words[1] in ("load", "append"):
         if len(words) == 2:
             return Slot(files=(".csv",), columns=words[1] == "append")
@@ -54,7 +61,12 @@ def split_values(text: str) -> list[str]:
          log-likelihood on its grid, and if the mass moves toward an edge of the grid the
          grid is re-sized, and you are told. While the columns of a likelihood differ in
          length (one appended, the other not yet), the posterior waits and questions say
-         which columns and how many rows.""")
+         which columns and how many rows. `data edit COL row N = VALUE` changes the value
+         of column COL in row N (rows counted from 1, as in the file below its header),
+         such as a censoring flag (`data edit running row 12 = 0`); `data drop COL row N`
+         takes row N out of every column of the table that holds COL (a typed column
+         alone). Inside a `whatif` layer these are hypothetical like any data command,
+         and the side-by-side answers say which rows differ.""")
 def data(app, line: Line):
     seg = line.rest(1)
     if not seg.text:
@@ -70,6 +82,8 @@ def data(app, line: Line):
     w = line.words
     if w[1].text == "append":
         return _append(app, line)
+    if w[1].text in ("edit", "drop"):
+        return _edit(app, line)
     if w[1].text != "load":
         raise ShellError(f"expected `=` after `{w[1].text}` or `data load FILE.csv`; usage: "
                          f"{DATA_USAGE}", w[1].end + 1)
@@ -126,3 +140,44 @@ def _append(app, line: Line):
     path, prefix = _file_and_prefix(line, APPEND_USAGE)
     say(app, with_progress(app, ws.data_append_file, path, prefix))
     return _file_reply(ws, path)
+
+
+_ROW_IS = re.compile(r"^(?P<row>[^\s=]+)\s*(?:=(?P<value>.*))?$", re.S)
+
+
+def _edit(app, line: Line):
+    """``data edit COL row N = VALUE`` and ``data drop COL row N``."""
+    w = line.words
+    verb = w[1].text
+    usage = EDIT_USAGE if verb == "edit" else DROP_USAGE
+    if len(w) < 3:
+        raise ShellError(f"`data {verb}` needs a column and a row: {usage}", line.end_column())
+    col = w[2]
+    if col.text not in app.ws.data:
+        raise ShellError(f"no data column `{col.text}`", col.column)
+    if len(w) < 4 or w[3].text != "row":
+        at = w[3].column if len(w) > 3 else line.end_column()
+        raise ShellError(f"expected `row N` after `{col.text}`; usage: {usage}", at)
+    seg = line.rest(4)
+    m = _ROW_IS.match(seg.text)
+    if not seg.text or m is None:
+        at = seg.start + 1 if seg.text else line.end_column()
+        raise ShellError(f"`row` needs a row number (counted from 1); usage: {usage}", at)
+    row = whole(Word(m.group("row"), seg.start), "row", low=1)
+    value = m.group("value")
+    if verb == "drop":
+        if value is not None:
+            raise ShellError(f"`data drop` takes no value; usage: {DROP_USAGE}",
+                             seg.start + seg.text.index("=") + 1)
+        say(app, app.ws.data_drop(col.text, row))
+        return None
+    if value is None:
+        raise ShellError(f"expected `= VALUE` after the row; usage: {EDIT_USAGE}",
+                         line.end_column())
+    if not value.strip():
+        raise ShellError("no value after `=`", line.end_column())
+    if len(value.split()) > 1:
+        raise ShellError(f"one value only: `data edit` changes one row; usage: {EDIT_USAGE}",
+                         seg.start + seg.text.index("=") + 2)
+    say(app, app.ws.data_edit(col.text, row, value.strip()))
+    return None

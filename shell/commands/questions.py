@@ -9,13 +9,14 @@ from __future__ import annotations
 
 import math
 
-from engine.results import Answer, NoMoment
+from engine.results import Answer, Levels, NoMoment
 
 from .. import render as R
 from ..layout import Table
 from ..registry import COMMANDS, NOTHING, Slot, command
 from ..replies import Asked, Reply, Shown
-from ..words import Line, ShellError, Word, formula_at, lone_equals, number
+from ..words import (Line, ShellError, Word, formula_at, fraction, is_fraction, lone_equals,
+                     number)
 from .common import notes
 
 
@@ -89,7 +90,18 @@ def answer_notes(app, a) -> None:
 def show(app, asked: Asked) -> Reply:
     answer_notes(app, asked.answer)
     app.printer.lines(asked.lines)
+    if getattr(asked.answer, "now", None) is not None:
+        rows_differ(app)
     return Reply(shown=(asked.shown,) if asked.shown is not None else ())
+
+
+def rows_differ(app) -> None:
+    """Under a side-by-side answer: which rows of the data the what-if side changed."""
+    diff = app.ws.whatif_rows()
+    if diff:
+        app.printer.line("what if differs in: " + "; ".join(diff))
+    else:
+        app.printer.line("what if: the data are the same as now")
 
 
 def _handler(ask):
@@ -123,18 +135,53 @@ def ask_sd(app, line: Line) -> Asked:
     return _asked(line, a, line.text, scale=getattr(a.detail, "scale", None))
 
 
+#: What may end an expression: a word ending in one of these leaves the next word
+#: to the expression (`quantile x + 1 0.5` is the 0.5 quantile of x + 1).
+_OPEN = "+-*/^(,<>=~"
+
+
+def quantile_levels(line: Line) -> tuple[int, list[Word]]:
+    """``quantile EXPR Q [Q ...]``: where the levels start (a word index) and their
+    words: the trailing words that read as levels, less any an operator before them
+    claims for the expression."""
+    w = line.words
+    k = len(w)
+    while k > 2 and is_fraction(w[k - 1].text):
+        k -= 1
+    while k < len(w) and w[k - 1].text[-1] in _OPEN:
+        k += 1
+    return k, list(w[k:])
+
+
 def ask_quantile(app, line: Line) -> Asked:
     w = line.words
     if len(w) < 3:
-        raise ShellError("`quantile` needs an expression and a level, as in `quantile p 0.9`",
-                         line.end_column())
-    q = number(w[-1], "quantile level")
-    if not 0 < q < 1:
-        raise ShellError(f"quantile level must be between 0 and 1; got `{w[-1].text}`",
-                         w[-1].column)
-    seg = line.part(w[1].start, w[-1].start).rest(0)
-    a = formula_at(seg, app.ws.quantile, seg.text, q)
-    return _asked(line, a, line.text)
+        raise ShellError("`quantile` needs an expression and a level, as in `quantile p 0.9` "
+                         "or `quantile p 5% 95%`", line.end_column())
+    k, words = quantile_levels(line)
+    if not words:
+        raise ShellError(f"`quantile` needs a level after the expression, as in `quantile "
+                         f"{line.rest(1).text} 0.9`; got `{w[-1].text}`", w[-1].column)
+    qs = [fraction(x, "quantile level") for x in words]
+    seg = line.part(w[1].start, w[k].start).rest(0)
+    answers = [formula_at(seg, app.ws.quantile, seg.text, q) for q in qs]
+    if len(answers) == 1:
+        return _asked(line, answers[0], line.text)
+    a = _levels_answer(answers, qs)
+    label = f"quantiles of {seg.text} at " + ", ".join(x.text for x in words)
+    return _asked(line, a, label)
+
+
+def _levels_answer(answers: list[Answer], qs: list[float]) -> Answer:
+    """Several quantiles of one expression as one answer (and its "now" side)."""
+    first = answers[0]
+    notes = tuple(dict.fromkeys(n for a in answers for n in a.notes))
+    now = None
+    if all(a.now is not None for a in answers):
+        now = _levels_answer([a.now for a in answers], qs)
+    detail = Levels(tuple(qs), tuple(a.values[0] for a in answers),
+                    tuple(a.errors[0] for a in answers))
+    return Answer("quantile", first.label, detail, notes, now)
 
 
 def question(name: str, usage: str, help: str, ask, complete=_FORMULA,
@@ -147,15 +194,17 @@ def question(name: str, usage: str, help: str, ask, complete=_FORMULA,
 question("prob", "prob CONDITION", ask=ask_prob, help="""
     The posterior probability of a condition on the parameters and lets, as in `prob p <
     0.01` or `prob a > b and b > 0`; `==` and `!=` suit discrete parameters. Conditions use
-    `< <= > >= == !=` and `and or not`.""")
+    `< <= > >= == !=` and `and or not`; a number may be written as a percentage (`prob
+    prev > 5%`).""")
 question("mean", "mean EXPR", ask=ask_mean, help="""
     The posterior mean of any expression of the parameters and lets, as in `mean p` or
     `mean exp(mu + sigma^2 / 2)`.""")
 question("sd", "sd EXPR", ask=ask_sd, help="""
     The posterior standard deviation of any expression of the parameters and lets.""")
-question("quantile", "quantile EXPR Q", ask=ask_quantile, help="""
-    The Q-quantile (0 < Q < 1) of any expression of the parameters and lets under the
-    posterior, as in `quantile 1 / rate 0.9`.""")
+question("quantile", "quantile EXPR Q [Q ...]", ask=ask_quantile, help="""
+    The Q-quantile (0 < Q < 1, or a percentage as `5%`) of any expression of the
+    parameters and lets under the posterior, as in `quantile 1 / rate 0.9`; several
+    levels give several quantiles at once (`quantile rate 5% 95%`).""")
 
 
 # ---------------------------------------------------------------------------
@@ -175,13 +224,7 @@ def ask_interval(app, line: Line) -> Asked:
             kind, seen_kind = x.text, True
             continue
         if not seen_level and x.text not in ("hpd", "central"):
-            t = x.text
-            level = number(Word(t[:-1], x.start), "level") / 100 if t.endswith("%") \
-                else number(x, "level")
-            if not 0 < level < 1:
-                raise ShellError(f"level must be between 0 and 1 (or 0% and 100%); got "
-                                 f"`{t}`", x.column)
-            seen_level = True
+            level, seen_level = fraction(x, "level"), True
             continue
         raise ShellError(f"unexpected `{x.text}`; usage: {INTERVAL_USAGE}", x.column)
     name = w[1].text
@@ -329,6 +372,7 @@ def _summary_side_by_side(app, s) -> Reply:
 
     p.line(f"log evidence: now {ev(s.now)}, what if {ev(s)}")
     p.line(f"grid points: now {R.count(s.now.points)}, what if {R.count(s.points)}")
+    rows_differ(app)
     return Reply(shown=tuple(_summary_shown(s)))
 
 
