@@ -105,6 +105,7 @@ class App:
         self.written: set[str] = set()      # files this session's save/export wrote
         self.replaying: list[str] = []      # session files being replayed (nesting)
         self.replay_writes: list[list[str]] = []   # files each of those wrote, so far
+        self.journal = None                 # shell.journal.Journal, written after each command
         self.depth = 0
         self.current_where: str | None = None
 
@@ -137,6 +138,8 @@ class App:
             self._back_to(mark, drop_log=True)
             return "error"
         self.keep(cmd.kind, line, mark.before, reply)
+        if self.depth == 0 and self.journal is not None:
+            self.journal.sync(self.log)
         if cmd.kind == "check" and reply.status == "ok":
             return "checked"
         return reply.status

@@ -68,7 +68,11 @@ def main(argv: list[str] | None = None, *, stdin=None, stdout=None, stderr=None)
             stderr.write("quadrat: --budget needs a positive number of seconds\n")
             return 2
         app.ws.budget_seconds = args.budget
+    from . import journal as J
+    held = J.catch_signals()
+    journal = None
     try:
+        journal = J.start(app, interactive=interactive)
         if interactive:
             from .repl import Repl
             return Repl(app).run()
@@ -90,6 +94,21 @@ def main(argv: list[str] | None = None, *, stdin=None, stdout=None, stderr=None)
         except (OSError, ValueError, AttributeError):
             pass
         return EXIT_PIPE
+    except J.Ended as ended:
+        # a dropped connection (SIGHUP) or a stop (SIGTERM): what the session did is in
+        # the journal; say so if anyone can still read it
+        if journal is not None:
+            journal.finish(ended.name)
+            try:
+                printer.error(f"quadrat: ended by {ended.name}; `journal restore` in the next "
+                              f"`quadrat` brings the session back (journal {journal.id})")
+            except (OSError, ValueError):
+                pass
+        return ended.code
+    finally:
+        J.release_signals(held)
+        if journal is not None:
+            journal.finish("quit")
 
 
 def run_file(app: App, path: str) -> int:

@@ -8,6 +8,8 @@
 from __future__ import annotations
 
 import os
+import signal
+import sys
 
 from prompt_toolkit import PromptSession
 from prompt_toolkit.history import FileHistory, History, InMemoryHistory
@@ -88,6 +90,10 @@ class Repl:
 
     def __init__(self, app: App, *, input=None, output=None, history: History | None = None):
         self.app = app
+        try:
+            self.tty = input is None and sys.stdin.isatty()
+        except (AttributeError, ValueError):
+            self.tty = False
         self.session = PromptSession(
             lambda: prompt_text(app.ws),
             completer=ShellCompleter(lambda: Names.of(app.ws)),
@@ -110,6 +116,21 @@ class Repl:
             return False
         return not text.strip().lower().startswith("q")
 
+    def terminal_gone(self) -> bool:
+        """Whether an end of input came from a terminal that hung up (a dropped
+        connection), not from Ctrl-D: the journal then says it ended unexpectedly."""
+        if not self.tty:
+            return False
+        try:
+            import termios
+        except ImportError:  # pragma: no cover - not on POSIX
+            return False
+        try:
+            termios.tcgetattr(sys.stdin.fileno())
+        except (termios.error, OSError, ValueError):
+            return True
+        return False
+
     def toolbar(self) -> str:
         return toolbar_text(self.app.ws.status(), self.app.printer.width)
 
@@ -123,6 +144,9 @@ class Repl:
             except KeyboardInterrupt:
                 continue
             except EOFError:
+                if self.terminal_gone():
+                    from .journal import Ended
+                    raise Ended(signal.SIGHUP) from None
                 break
             try:
                 self.run_line(text)

@@ -255,17 +255,33 @@ def replay(app, path: str, *, shown: str | None = None, allow_changed_data: bool
                          f"--allow-changed-data to go on{more}")
     for p in problems:
         app.printer.warning(f"`{shown}`: {p.message}; going on as told")
-    ws = app.ws
-    old_base = ws.base_dir
-    ws.base_dir = os.path.dirname(full)
-    app.replaying.append(real)
-    app.replay_writes.append([])
     name = shown
-    try:
+    with Replaying(app, real, os.path.dirname(full)) as frame:
         tally = app.run_lines(lines, lambda i: f"{name} line {i}")
-    finally:
-        app.replaying.pop()
-        tally_writes = app.replay_writes.pop()
-        ws.base_dir = old_base
-    tally.wrote = tuple(tally_writes)
+    tally.wrote = tuple(frame.wrote)
     return tally
+
+
+class Replaying:
+    """While a file is replayed: relative paths are read from `folder`, the file is
+    on the stack of replays (no loops, writes of new files only), and what it wrote
+    is gathered in `wrote`."""
+
+    def __init__(self, app, real: str, folder: str):
+        self.app, self.real, self.folder = app, real, folder
+        self.wrote: list[str] = []
+
+    def __enter__(self) -> "Replaying":
+        app = self.app
+        self.old_base = app.ws.base_dir
+        app.ws.base_dir = self.folder
+        app.replaying.append(self.real)
+        app.replay_writes.append(self.wrote)
+        return self
+
+    def __exit__(self, *exc) -> bool:
+        app = self.app
+        app.replaying.pop()
+        app.replay_writes.pop()
+        app.ws.base_dir = self.old_base
+        return False
