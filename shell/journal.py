@@ -534,7 +534,6 @@ def restore(app, info: JournalInfo, *, allow_changed_data: bool = False):
     """Replay the journal `info` through `app`'s one-command path, verifying its
     checks and its data files; returns the `Tally`. Raises `ShellError` before
     running anything when a data file changed (unless allowed) or is unreadable."""
-    from .app import Tally
     from .script import Replaying, verify_data
     from .words import ShellError
 
@@ -553,18 +552,21 @@ def restore(app, info: JournalInfo, *, allow_changed_data: bool = False):
                          f"--allow-changed-data` goes on{more}")
     for p in problems:
         app.printer.warning(f"{shown}: {p.message}; going on as told")
-    total = Tally()
+    total = None
     folder = info.folder if os.path.isdir(info.folder) else os.getcwd()
     with Replaying(app, os.path.realpath(info.path), folder) as frame:
         for chunk in chunks(lines):
             numbers = [n for n, _ in chunk.lines]
             t = app.run_lines([text for _, text in chunk.lines],
                               lambda i: f"{shown} line {numbers[i - 1]}")
-            total.errors += t.errors
-            total.failed += t.failed
-            total.checked += t.checked
-            total.cancelled |= t.cancelled
-            total.quit |= t.quit
+            if total is None:
+                total = t
+            else:
+                total.errors += t.errors
+                total.failed += t.failed
+                total.checked += t.checked
+                total.cancelled |= t.cancelled
+                total.quit |= t.quit
             if t.cancelled or t.quit or (t.errors and not app.keep_going):
                 break
             if chunk.rewind is not None:
