@@ -63,9 +63,17 @@ def _predictive(s: State, pr: Prediction, budget_seconds: float
     return got, predictive(post, pr.name, pr.family, pr.args, got.state.model)
 
 
+def unresolved(post) -> str:
+    """Why the grid of `post` does not resolve it ("" when it does, or for a rule in
+    the frame, whose levels report on themselves)."""
+    diag = getattr(post, "diagnostics", None)
+    return diag.unresolved if diag is not None else ""
+
+
 def _answer(got: Outcome, kind: str, label: str, detail, notes=()) -> Outcome:
     """The answer on the state `got` came to, with the notes of its posterior first."""
-    return Outcome(got.state, Answer(kind, label, detail, tuple(got.result.notes) + tuple(notes)))
+    return Outcome(got.state, Answer(kind, label, detail, tuple(got.result.notes) + tuple(notes),
+                                     unresolved=unresolved(got.result.posterior)))
 
 
 # ---------------------------------------------------------------------------
@@ -79,7 +87,8 @@ def summary(s: State, *, budget_seconds: float) -> Outcome:
                             post.quantile(name, 0.025), post.quantile(name, 0.5),
                             post.quantile(name, 0.975)) for name in post.names)
     return Outcome(got.state, Summary(rows, post.log_evidence, post.grid.size,
-                                      got.result.notes))
+                                      got.result.notes,
+                                      unresolved=unresolved(post)))
 
 
 def interval(s: State, name: str, level: float = 0.95, kind: str = "central", *,
@@ -121,8 +130,11 @@ def evidence(s: State, *, budget_seconds: float) -> Outcome:
     got = fresh(s, budget_seconds=budget_seconds)
     post = got.result.posterior
     if post.log_evidence is None:
+        # not an error: the posterior may be proper; the evidence has no meaning here
         why = "; ".join(post.compiled.improper) or "the prior is improper"
-        raise ComputeError(f"the evidence is not defined: {why}")
+        return _answer(got, "evidence", "log evidence", Number(math.nan),
+                       (f"the evidence is not defined under an improper prior ({why}); give "
+                        "every parameter a proper prior to compare models",))
     ev = post.log_evidence
     return _answer(got, "evidence", "log evidence", Number(ev.value, ev.error))
 

@@ -96,8 +96,10 @@ def summary_csv(summary) -> tuple[str, int]:
     return _csv_text(header, rows), len(rows)
 
 
-def to_json(post: Posterior, summary, *, meta: Mapping[str, object] | None = None) -> str:
-    """Summary, log evidence and every marginal as one JSON document."""
+def to_json(post: Posterior, summary, *, meta: Mapping[str, object] | None = None,
+            mode=None) -> str:
+    """Summary, log evidence, the joint mode (anything with `values`, `converged` and `message`, when given) and every
+    marginal as one JSON document, every number to full double precision."""
     params = {}
     for r in summary.rows:
         m = post.marginals[r.name]
@@ -116,11 +118,14 @@ def to_json(post: Posterior, summary, *, meta: Mapping[str, object] | None = Non
         "log_evidence": _est(summary.log_evidence),
         "parameters": params,
     }
+    if mode is not None:
+        doc["mode"] = {"values": {k: _f(v) for k, v in mode.values.items()},
+                       "converged": bool(mode.converged), "message": mode.message}
     return json.dumps(doc, indent=1, allow_nan=False) + "\n"
 
 
 def export(path: str, post: Posterior, summary, *, what: str = "marginals",
-           meta: Mapping[str, object] | None = None) -> ExportReport:
+           meta: Mapping[str, object] | None = None, mode=None) -> ExportReport:
     """Write marginals or the summary to `path` (CSV), or everything (JSON).
 
     Parameters
@@ -134,7 +139,7 @@ def export(path: str, post: Posterior, summary, *, what: str = "marginals",
     if ext not in FORMATS:
         raise QuadratError(f"`{os.path.basename(path)}`: export writes .csv or .json files")
     if ext == ".json":
-        text = to_json(post, summary, meta=meta)
+        text = to_json(post, summary, meta=meta, mode=mode)
         rows, what = len(summary.rows), "all"
     elif what == "summary":
         text, rows = summary_csv(summary)

@@ -72,10 +72,11 @@ def combine(v0: float, v1: float | None, v2: float | None = None, *, order: int 
     if v1 is None or not math.isfinite(v1):
         return Estimate(v0, None, "none")
     d1 = v0 - v1
-    if v2 is None or not math.isfinite(v2):
-        return Estimate(v0, abs(d1), "nested")
-    d2 = v1 - v2
     floor = 4e-16 * max(abs(v0), 1e-300)
+    if v2 is None or not math.isfinite(v2):
+        # an error of exactly 0 is for exact sums only: agreeing levels are rounding
+        return Estimate(v0, max(abs(d1), floor), "nested")
+    d2 = v1 - v2
     if abs(d1) <= floor:
         return Estimate(v0, floor, "nested")
     if abs(d2) <= 1e4 * floor:
@@ -432,6 +433,7 @@ class Diagnostics:
     edge_mass: dict[str, tuple[float, float]]
     min_points_per_sd: float
     missing: float = 0.0   # estimated posterior mass beyond the grid, all ends together
+    unresolved: str = ""   # why the grid does not resolve the posterior ("" when it does)
 
 
 @dataclass(frozen=True)
@@ -521,8 +523,24 @@ class Posterior:
         return est
 
     def _span(self, name: str) -> float:
+        """How far the mass beyond the grid on the *other* axes could move a mean of
+        `name`: that mass times the axis's span (its own ends are `_tail_moment`'s)."""
         a = self.grid.axis(name)
-        return 0.0 if a.discrete else (a.hi - a.lo) * self.diagnostics.missing
+        if a.discrete:
+            return 0.0
+        own = sum(self._end_missing(name))
+        return (a.hi - a.lo) * max(self.diagnostics.missing - own, 0.0)
+
+    def _end_missing(self, name: str) -> tuple[float, float]:
+        """The mass beyond each end of the axis of `name` (0 at a domain edge)."""
+        a = self.grid.axis(name)
+        if a.discrete:
+            return (0.0, 0.0)
+        m = self.marginals[name]
+        edge = self.diagnostics.edge_mass.get(name, (0.0, 0.0))
+        lo = 0.0 if a.scale == "linear" and a.lo <= a.dom_lo else max(edge[0] - m.mass[0], 0.0)
+        hi = 0.0 if a.scale == "linear" and a.hi >= a.dom_hi else max(edge[1] - m.mass[-1], 0.0)
+        return (float(lo), float(hi))
 
     def _quantile_truncation(self, name: str, q: float) -> float:
         """How far a quantile moves if the mass beyond the grid were added: the
@@ -592,14 +610,15 @@ class Posterior:
             return 0.0
         m = self.marginals[name]
         tails = m.tails()
-        edge = self.diagnostics.edge_mass.get(name, (0.0, 0.0))
         mean = m.mean
         total = 0.0
-        for k, em, node, end, at_edge in (
-                (tails.lo, edge[0], m.mass[0], a.lo, a.scale == "linear" and a.lo <= a.dom_lo),
-                (tails.hi, edge[1], m.mass[-1], a.hi, a.scale == "linear" and a.hi >= a.dom_hi)):
-            miss = max(float(em) - float(node), 0.0)
-            if at_edge or miss <= 0:
+        for k, miss, end, edge in zip((tails.lo, tails.hi), self._end_missing(name),
+                                      (a.lo, a.hi), (a.dom_lo, a.dom_hi)):
+            if miss <= 0:
+                continue
+            if math.isfinite(edge):
+                # the mass lies between the grid's end and the domain's edge
+                total += miss * max(abs(end - mean), abs(edge - mean)) ** power
                 continue
             factor = (k - 1) / (k - 1 - power) if k is not None and k > power + 1 else 2.0
             total += miss * abs(end - mean) ** power * factor
@@ -1247,6 +1266,8 @@ def _finish(compiled: Compiled, grid: Grid, sums: _Sums, watch: _Watch, seconds:
     prior_norm = prior_normaliser(compiled) if compiled.proper and compiled.free_prior else 0.0
     log_ev = _evidence(compiled, grid, log_mass, prior_norm)
     diag = _diagnostics(grid, marg, watch.zero)
+    diag = replace(diag, unresolved=_resolution(compiled, grid, marg, coarse, log_mass,
+                                                watch.best_flat))
     if log_ev is not None and log_ev.error is not None:
         # the mass beyond the grid is missing from the evidence too
         log_ev = replace(log_ev, error=log_ev.error + diag.missing)
@@ -1324,6 +1345,77 @@ def _diagnostics(grid: Grid, marg: dict[str, Marginal], zero: int) -> Diagnostic
             h = np.median(a.spacing())
             per_sd = min(per_sd, sd / h if h > 0 else math.inf)
     return Diagnostics(zero, edge, per_sd, min(missing, 1.0))
+
+
+#: Share of an axis's posterior mass in its two heaviest nodes above which the
+#: posterior is called unresolved (a normal marginal with one node per sd holds
+#: about 0.68 there; the 6 nodes per sd `grid auto` aims for, 0.13).
+CELL_MASS = 0.5
+#: Relative change of the grid's mass, or of an sd, from the nested coarse grid to
+#: the fine one above which the two are said to disagree.
+LEVELS_DISAGREE = 0.05
+
+
+def _resolution(compiled: Compiled, grid: Grid, marg: dict[str, Marginal],
+                coarse: tuple[dict[str, Marginal], ...], log_mass: tuple[float, ...],
+                best_flat: int) -> str:
+    """Why the grid does not resolve the posterior, or "": the mass sits in one or
+    two nodes of an axis, the curvature at the best point gives an sd below the
+    node spacing, or the fine and nested coarse grids disagree."""
+    why = []
+    best = np.unravel_index(best_flat, grid.shape)
+    for k, a in enumerate(grid.axes):
+        if a.discrete or a.n < 3:
+            continue
+        m = marg[a.name]
+        top = np.sort(m.mass)[-2:]
+        h = float(np.median(a.spacing()))
+        csd, ratio = _curvature_sd(compiled, grid, best, k)
+        nodes = int(np.sum(top > 1e-3))
+        if top.sum() > CELL_MASS:
+            text = (f"{100 * top.sum():.3g}% of the mass of `{a.name}` sits in {nodes} grid "
+                    f"node{'s' if nodes > 1 else ''}")
+            if ratio < 1:
+                text += (f"; the curvature at the mode gives an sd of {csd:.2g}, against a "
+                         f"spacing of {csd / ratio:.2g} there")
+            why.append(text)
+        elif ratio < 0.5:
+            why.append(f"the curvature at the mode of `{a.name}` gives an sd of {csd:.2g}, "
+                       f"against a spacing of {csd / ratio:.2g} there")
+        elif coarse and a.name in coarse[0]:
+            sd0, sd1 = m.sd, coarse[0][a.name].sd
+            if sd0 > 0 and abs(sd1 - sd0) > LEVELS_DISAGREE * sd0:
+                why.append(f"the sd of `{a.name}` is {sd0:.3g} on the grid and {sd1:.3g} on "
+                           "its nested coarse grid")
+    if not why and len(log_mass) > 1 and math.isfinite(log_mass[1]) \
+            and abs(log_mass[0] - log_mass[1]) > LEVELS_DISAGREE:
+        why.append(f"the grid's mass changes by a factor {math.exp(abs(log_mass[0] - log_mass[1])):.3g} "
+                   "from the nested coarse grid to the fine one")
+    return "; ".join(why)
+
+
+def _curvature_sd(compiled: Compiled, grid: Grid, best: tuple, k: int
+                  ) -> tuple[float, float]:
+    """The sd (in the parameter's units) that the second difference of the log
+    density on the axis's scale gives at the best node, over a quarter of the
+    spacing, and that sd over the node spacing there (both on the axis's scale);
+    (nan, inf) at an end node or where the density is not curved down."""
+    a = grid.axes[k]
+    i = int(best[k])
+    if i == 0 or i == a.n - 1:
+        return math.nan, math.inf
+    du = 0.25 * min(a.u[i + 1] - a.u[i], a.u[i] - a.u[i - 1])
+    us = np.array([a.u[i] - du, a.u[i], a.u[i] + du])
+    vals = a.to_value(us)
+    theta = [np.full(3, ax.values[int(best[j])]) for j, ax in enumerate(grid.axes)]
+    theta[k] = vals
+    with np.errstate(all="ignore"):
+        lp = evaluate_block(compiled, theta) + a.log_jacobian(us)
+    d2 = (lp[0] - 2 * lp[1] + lp[2]) / du ** 2
+    if not (np.isfinite(d2) and d2 < 0):
+        return math.nan, math.inf
+    sd_u = 1 / math.sqrt(-d2)
+    return float(sd_u * math.exp(float(a.logjac[i]))), float(sd_u / (4 * du))
 
 
 def prior_normaliser(compiled: Compiled, points: int = 201) -> float:

@@ -235,6 +235,7 @@ class Answer:
     detail: Detail
     notes: tuple[str, ...] = ()
     now: "Answer | None" = None
+    unresolved: str = ""     # why the grid does not resolve the posterior it came from
 
     @property
     def values(self) -> tuple[float, ...]:
@@ -264,6 +265,7 @@ class Summary:
     points: int
     notes: tuple[str, ...] = ()
     now: "Summary | None" = None
+    unresolved: str = ""
 
 
 # ---------------------------------------------------------------------------
@@ -342,6 +344,7 @@ class ComputeReport:
     log_evidence: Estimate | None
     notes: tuple[str, ...]
     warnings: tuple[str, ...]
+    unresolved: str = ""
 
 
 @dataclass(frozen=True)
@@ -385,3 +388,5 @@ class Status:
     posterior: str            # "absent", "current", "out of date"
     log_evidence: float | None
     whatif: bool
+    log_evidence_error: float | None = None
+    unresolved: bool = False

@@ -170,7 +170,7 @@ def _compute_on(s: State, compiled: Compiled, size: Sizing, *, budget_seconds: f
     notes = notes + tuple(compiled.improper)
     return Outcome(s.with_posterior(post, steps=()),
                    ComputeReport(grid.size, post.seconds, post.log_evidence, notes,
-                                 warnings(post)))
+                                 warnings(post), post.diagnostics.unresolved))
 
 
 def fresh(s: State, *, budget_seconds: float) -> Outcome:
@@ -208,8 +208,13 @@ def computed(s: State, *, budget_seconds: float, progress: Progress = None) -> O
 
 
 def warnings(post: Posterior) -> tuple[str, ...]:
-    """Mass at the edges of the grid, and axes too coarse for the posterior's spread."""
+    """A posterior the grid does not resolve, mass at the edges of the grid, and axes
+    too coarse for the posterior's spread."""
     out = []
+    if post.diagnostics.unresolved:
+        out.append(f"the grid does not resolve the posterior: {post.diagnostics.unresolved}; "
+                   "no answer on this grid is converged: use `grid auto`, or `zoom` to "
+                   "bring the bounds in around the mass")
     for name, (lo_m, hi_m) in post.diagnostics.edge_mass.items():
         ax = post.grid.axis(name)
         p = post.compiled.model.param(name)
@@ -226,15 +231,30 @@ def warnings(post: Posterior) -> tuple[str, ...]:
             out.append(f"mass at the upper edge of `{name}` ({hi_m:.2g} at {ax.hi:.6g}): "
                        "widen the grid or use `grid auto`")
     for a in post.grid.axes:
-        if a.discrete or a.n < 2:
+        if a.discrete or a.n < 2 or post.diagnostics.unresolved:
             continue
         m = post.marginals[a.name]
         h = float(np.median(a.spacing()))
-        if m.sd > 0 and h > 0 and m.sd / h < MIN_POINTS_PER_SD:
+        if m.sd > 0 and h > 0 and m.sd / h < MIN_POINTS_PER_SD and not _settled(post, a.name):
             out.append(f"the grid of `{a.name}` is too coarse for its spread: "
                        f"{m.sd / h:.2g} points across one sd (want at least "
                        f"{MIN_POINTS_PER_SD:g}); use more points or `zoom`")
     return tuple(out)
+
+
+#: An sd whose estimated error is below this share of itself is settled: a grid
+#: spaced unevenly in the parameter's units (log and logit scales) may then have
+#: few nodes per sd in the middle and still be right.
+SETTLED = 1e-6
+
+
+def _settled(post: Posterior, name: str) -> bool:
+    """Whether the mean and sd of `name` are already known to `SETTLED` of the sd."""
+    sd = post.param_sd(name)
+    mean = post.param_mean(name)
+    if sd.error is None or mean.error is None or not sd.value > 0:
+        return False
+    return max(sd.error, mean.error) <= SETTLED * sd.value
 
 
 def grid_auto(s: State) -> Outcome:
@@ -310,7 +330,7 @@ def zoom(s: State, mass: float = 1 - 1e-9, *, budget_seconds: float,
     return Outcome(s.with_posterior(new, specs=specs, steps=()),
                    ComputeReport(grid.size, new.seconds, new.log_evidence,
                                  notes + (f"zoomed to {mass:.10g} of the mass: {lines}",),
-                                 warnings(new)))
+                                 warnings(new), new.diagnostics.unresolved))
 
 
 # ---------------------------------------------------------------------------

@@ -113,9 +113,11 @@ class Workspace:
         s = self.state
         post = s.posterior
         st = "absent" if post is None else "current" if s.current else "out of date"
-        ev = post.log_evidence.value if post is not None and post.log_evidence else None
-        return Status(s.model.param_names, points_of(post) if post else None, st, ev,
-                      self.in_whatif)
+        ev = post.log_evidence if post is not None and post.log_evidence else None
+        diag = getattr(post, "diagnostics", None)
+        return Status(s.model.param_names, points_of(post) if post else None, st,
+                      ev.value if ev else None, self.in_whatif, ev.error if ev else None,
+                      bool(diag is not None and diag.unresolved))
 
     def resolve(self, path: str) -> str:
         """A data-file path as typed, read from `base_dir` when relative."""

@@ -21,6 +21,7 @@ from engine.state import State
 from engine.workspace import Workspace
 
 from . import commands  # noqa: F401  (fills the command table)
+from . import render as R
 from .paths import state_dir
 from .printer import Printer
 from .registry import COMMANDS, LATER
@@ -108,6 +109,7 @@ class App:
         self.journal = None                 # shell.journal.Journal, written after each command
         self.depth = 0
         self.current_where: str | None = None
+        self.digits = R.DIGITS              # significant digits shown (`digits N`)
 
     # -- the one path ----------------------------------------------------------
     def run(self, source: str, where: str | None = None) -> str:
@@ -124,7 +126,8 @@ class App:
         try:
             check_characters(line)
             cmd = self.lookup(line)
-            reply = cmd.handler(self, line) or Reply()
+            with R.showing(self.digits):
+                reply = cmd.handler(self, line) or Reply()
         except (Quit, BrokenPipeError):
             raise   # leaving, or the reader of the output went away (`| head`)
         except (KeyboardInterrupt, Exception) as exc:  # noqa: BLE001 - the loop must go on

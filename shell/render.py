@@ -1,7 +1,9 @@
 """Numbers, tables and answers as text.
 
-Every number the shell shows goes through `num` (about six significant
-digits); an estimated error is shown beside it with one digit. `check_tol`
+Every number the shell shows goes through `num` (six significant digits, or as
+many as the `digits` setting asks); a number with an estimated error goes
+through `to_error`, which shows it only to the digit its error supports (and
+as 0 when it lies within its error of 0), the error beside it with one digit. `check_tol`
 decides the tolerance a saved `check` line carries: the larger of one unit in
 the last printed digit and a few times the estimated error, so that the file
 replays anywhere and a real change fails.
@@ -10,15 +12,39 @@ replays anywhere and a real change fails.
 from __future__ import annotations
 
 import math
-from typing import Sequence
+from contextlib import contextmanager
+from contextvars import ContextVar
+from typing import Iterator, Sequence
 
 from engine.plan import format_bytes, format_duration
 
 DIGITS = 6
+#: The most significant digits the `digits` setting may ask for (a double holds 17).
+MAX_DIGITS = 17
+#: The significant digits numbers are shown with while a command runs: the App sets
+#: it from its `digits` setting around each command (`showing`).
+_DIGITS: ContextVar[int] = ContextVar("digits", default=DIGITS)
 
 
-def num(v: float | None, digits: int = DIGITS) -> str:
-    """A number with `digits` significant digits (``-`` when missing)."""
+def digits() -> int:
+    """The significant digits numbers are shown with now."""
+    return _DIGITS.get()
+
+
+@contextmanager
+def showing(n: int) -> Iterator[None]:
+    """Show numbers with `n` significant digits inside the block."""
+    token = _DIGITS.set(n)
+    try:
+        yield
+    finally:
+        _DIGITS.reset(token)
+
+
+def num(v: float | None, digits: int | None = None) -> str:
+    """A number with `digits` significant digits (default: the setting; ``-`` when
+    missing)."""
+    digits = digits or _DIGITS.get()
     if v is None:
         return "-"
     v = float(v)
@@ -48,9 +74,25 @@ def err(e: float | None) -> str:
     return "± " + _compact(f"{e:.0e}")
 
 
-def with_error(v: float, e: float | None) -> str:
-    """``0.285714  (± 3e-12)``."""
-    s = num(v)
+def to_error(v: float | None, e: float | None) -> str:
+    """`v` to the digit its estimated error `e` supports: ``12.69`` for 12.6929 with
+    an error of 0.03, ``0`` for a value within twice its error of 0; as `num` where there
+    is no error (or it is 0: an exact sum)."""
+    if v is None or e is None or not (math.isfinite(e) and e > 0) or not math.isfinite(v):
+        return num(v)
+    if abs(v) < 2 * e:
+        # not twice its (one-digit, estimated) error away from 0: not told from 0
+        return "0"
+    shown = math.floor(math.log10(abs(v))) - math.floor(math.log10(e)) + 1
+    return num(v, max(1, min(digits(), shown)))
+
+
+def with_error(v: float, e: float | None, *, unresolved: bool = False) -> str:
+    """``0.285714  (± 3e-12)``; a value of a posterior the grid does not resolve
+    shows two digits and says so, never an error that would pass for converged."""
+    if unresolved:
+        return f"{num(v, 2)}  (not resolved)"
+    s = to_error(v, e)
     if e is None:
         return s
     return f"{s}  ({err(e)})"

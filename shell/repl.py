@@ -19,6 +19,7 @@ from .app import App
 from .completer import Names, ShellCompleter
 from .keys import bindings
 from .paths import history_file
+from . import render as R
 from .toolbar import toolbar_text
 from .words import Quit, split_commands
 
@@ -132,7 +133,8 @@ class Repl:
         return False
 
     def toolbar(self) -> str:
-        return toolbar_text(self.app.ws.status(), self.app.printer.width)
+        with R.showing(self.app.digits):
+            return toolbar_text(self.app.ws.status(), self.app.printer.width)
 
     def run(self) -> int:
         """Read and run lines until `quit` or Ctrl-D; returns the exit status."""

@@ -11,7 +11,7 @@ from __future__ import annotations
 from engine.results import Status
 
 from .layout import cells
-from .render import count, num
+from .render import count, num, to_error
 
 
 def _params(names: tuple[str, ...]) -> list[str]:
@@ -36,7 +36,8 @@ def _forms(status: Status) -> list[list[str]]:
                   "out of date": ["posterior out of date", "out of date", ""]}.get(
         status.posterior, [status.posterior]))
     if status.log_evidence is not None:
-        v = num(status.log_evidence)
+        v = (num(status.log_evidence, 2) + " (not resolved)" if status.unresolved
+             else to_error(status.log_evidence, status.log_evidence_error))
         if status.posterior == "out of date":
             parts.append([f"log evidence {v} (before the change)", f"log evidence {v} (before)",
                           f"log ev {v} (before)", f"log ev {v} (old)"])

@@ -196,7 +196,8 @@ def compute(app, line: Line):
             raise ShellError(f"unexpected `{bad.text}`; usage: compute [force]", bad.column)
         force = True
     rep = with_progress(app, app.ws.compute, force=force)
-    ev = ("; log evidence " + R.with_error(rep.log_evidence.value, rep.log_evidence.error)
+    ev = ("; log evidence " + R.with_error(rep.log_evidence.value, rep.log_evidence.error,
+                                           unresolved=bool(rep.unresolved))
           if rep.log_evidence is not None else "")
     app.printer.line(f"computed {R.count(rep.points)} points in {R.duration(rep.seconds)}{ev}")
     notes(app, rep.notes)

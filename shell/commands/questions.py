@@ -30,7 +30,9 @@ def _formula(line: Line, what: str):
 def _values(a: Answer) -> str:
     if isinstance(a.detail, NoMoment):
         return f"none ({a.detail.reason.split(':')[0]})"
-    vals = ", ".join(R.num(v) for v in a.values)
+    if a.unresolved:
+        return ", ".join(R.num(v, 2) for v in a.values) + "  (not resolved)"
+    vals = ", ".join(R.to_error(v, e) for v, e in zip(a.values, a.errors))
     errs = [e for e in a.errors if e is not None]
     if not errs:
         return vals
@@ -268,6 +270,8 @@ def ask_evidence(app, line: Line) -> Asked:
     if len(w) > 1:
         raise ShellError(f"unexpected `{w[1].text}`: `evidence` takes nothing", w[1].column)
     a = app.ws.evidence()
+    if not math.isfinite(a.detail.value) and a.now is None:
+        return Asked(a, (), None)      # not defined: the answer's note says why
     return _asked(line, a, "log evidence")
 
 
@@ -282,6 +286,29 @@ question("mode", "mode", ask=ask_mode, complete=lambda words, text: NOTHING, hel
 question("evidence", "evidence", ask=ask_evidence, complete=lambda words, text: NOTHING,
          help="""The log evidence (marginal likelihood) of the model, with its estimated error.
     It is defined only when every prior is proper.""")
+
+
+# ---------------------------------------------------------------------------
+# digits
+
+@command("digits", usage="digits [N]", kind="note", group="question",
+         complete=lambda words, text: Slot(words=("6", "10", "15")) if len(words) == 1
+         else NOTHING,
+         help=f"""Shows or sets how many significant digits numbers are shown with (1 to
+         {R.MAX_DIGITS}; 6 at the start). A number with an estimated error is never shown
+         past the digit its error supports, whatever the setting. Exports always hold every
+         digit. Saved sessions keep the setting.""")
+def digits(app, line: Line):
+    w = line.words
+    if len(w) > 2:
+        raise ShellError(f"unexpected `{w[2].text}`; usage: digits [N]", w[2].column)
+    if len(w) == 2:
+        n = number(w[1], "N")
+        if n != int(n) or not 1 <= n <= R.MAX_DIGITS:
+            raise ShellError(f"digits must be a whole number from 1 to {R.MAX_DIGITS}; got "
+                             f"`{w[1].text}`", w[1].column)
+        app.digits = int(n)
+    app.printer.line(f"numbers are shown with {app.digits} significant digits")
 
 
 # ---------------------------------------------------------------------------
@@ -306,7 +333,7 @@ def summary(app, line: Line):
     rows, errs, absent = [], [], []
     for r in s.rows:
         ests = (r.mean, r.sd, r.q025, r.q50, r.q975)
-        rows.append([r.name] + [_cell(e) for e in ests])
+        rows.append([r.name] + [_cell(e, s.unresolved) for e in ests])
         errs.extend(e.error for e in ests if e.error is not None)
         gone = [w for w, e in (("mean", r.mean), ("sd", r.sd)) if e.method == "absent"]
         if gone:
@@ -317,19 +344,27 @@ def summary(app, line: Line):
         p.line("- " + text)
     ev = s.log_evidence
     if ev is not None:
-        p.line("log evidence = " + R.with_error(ev.value, ev.error))
+        p.line("log evidence = " + R.with_error(ev.value, ev.error,
+                                                unresolved=bool(s.unresolved)))
     else:
         p.line("log evidence: not defined (the prior is improper)")
     tail = f"{R.count(s.points)} grid points"
-    if errs:
+    if s.unresolved:
+        tail += "; not resolved: " + s.unresolved + " (use `grid auto` or `zoom`)"
+    elif errs and max(errs) > 0:
         tail += f"; largest estimated error {R.err(max(errs))[2:]}"
+    elif errs:
+        tail += "; exact sums"
     p.line(tail)
     return Reply(shown=tuple(_summary_shown(s)))
 
 
-def _cell(e) -> str:
-    """A summary cell: the value, or `-` for a moment that does not exist."""
-    return "-" if e.method == "absent" else R.num(e.value)
+def _cell(e, unresolved: str = "") -> str:
+    """A summary cell: the value to the digit its error supports, or `-` for a
+    moment that does not exist."""
+    if e.method == "absent":
+        return "-"
+    return R.num(e.value, 2) if unresolved else R.to_error(e.value, e.error)
 
 
 def _summary_shown(s) -> list[Shown]:

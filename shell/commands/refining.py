@@ -191,7 +191,8 @@ def parse_zoom(line: Line) -> tuple[float, bool]:
 def zoom(app, line: Line):
     mass, force = parse_zoom(line)
     rep = with_progress(app, app.ws.zoom, mass, force=force)
-    ev = ("; log evidence " + R.with_error(rep.log_evidence.value, rep.log_evidence.error)
+    ev = ("; log evidence " + R.with_error(rep.log_evidence.value, rep.log_evidence.error,
+                                           unresolved=bool(rep.unresolved))
           if rep.log_evidence is not None else "")
     # the engine's last note says where the axes went; any before it (a compute
     # done first) came before the zoom

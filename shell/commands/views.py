@@ -340,7 +340,8 @@ def export(app, line: Line):
     meta = {"quadrat": __version__,
             "exported": datetime.datetime.now(datetime.timezone.utc).isoformat(timespec="seconds"),
             "model": session_model_text(app.ws)}
-    rep = E.export(target.path, post, summary, what=what, meta=meta)
+    mode = app.ws.mode().detail if ext == ".json" else None    # a `Point`
+    rep = E.export(target.path, post, summary, what=what, meta=meta, mode=mode)
     via = wrote(app, target)
     kind = {"marginals": "marginals", "summary": "summary", "all": "summary and marginals"}
     unit = "parameters" if rep.what == "all" else "rows"
