@@ -21,7 +21,7 @@ from .edits import data_notes
 from .errors import ComputeError, GridError, QuadratError
 from .grid import Grid
 from .model import Compiled, compile_model
-from .posterior import Posterior, compute as compute_posterior
+from .posterior import Posterior, compute as compute_posterior, zeros
 from .refine import (AxisSpec, auto_grid, axis_count, build_grid, refine as refine_posterior,
                      refined_grid, widen_specs, zoom_specs)
 from .results import Change, ComputeReport, CostReport, CostStep, Fresh, GridAuto, RefineReport
@@ -164,13 +164,25 @@ def _compute_on(s: State, compiled: Compiled, size: Sizing, *, budget_seconds: f
     check_cost(compiled, grid, budget_seconds=budget_seconds, force=force)
     post = compute_posterior(compiled, grid, progress=progress)
     notes = size.notes
-    if post.diagnostics.zero_points:
-        notes = notes + (f"the posterior is zero at {post.diagnostics.zero_points:,} of "
-                         f"{grid.size:,} grid points (outside a support or constraint)",)
+    notes = notes + zero_notes(post)
     notes = notes + tuple(compiled.improper)
     return Outcome(s.with_posterior(post, steps=()),
                    ComputeReport(grid.size, post.seconds, post.log_evidence, notes,
                                  warnings(post), post.diagnostics.unresolved))
+
+
+def zero_notes(post: Posterior) -> tuple[str, ...]:
+    """What the points of zero density are: a support or constraint cutting through
+    the mass, or a density that underflowed where it is negligible."""
+    z = zeros(post)
+    where = f"{z.count:,} of {post.grid.size:,} grid points"
+    return {"none": (),
+            "cut": (f"the posterior is zero at {where} (outside a support or constraint)",),
+            "underflow": (f"the log-density is -inf at {where}, all where the posterior is "
+                          "negligible (it underflows in double precision there); no answer "
+                          "is affected",),
+            "unknown": (f"the posterior is zero at {where} (outside a support or constraint, "
+                        "or underflowing where it is negligible)",)}[z.kind]
 
 
 def fresh(s: State, *, budget_seconds: float) -> Outcome:

@@ -288,3 +288,45 @@ def test_evidence_under_an_improper_prior_is_a_note_with_status_0(tmp_path):
     assert r.returncode == 0, r.stderr
     assert "note: the evidence is not defined under an improper prior" in r.stdout + r.stderr
     assert "error" not in r.stdout + r.stderr
+
+
+def test_bayes_factor_is_stated_above_one_for_the_favoured_model():
+    # B = exp(|log B|) names the favoured model first (common practice)
+    from shell.commands.arrivals import bayes_factor_line
+    line = bayes_factor_line("probit", "logistic", math.log(1 / 2.9), 1e-6)
+    assert line == "B = 2.9 in favour of `logistic` over `probit`"
+    assert bayes_factor_line("a", "b", math.log(0.344715), 1e-9) == \
+        "B = 2.90095 in favour of `b` over `a`"  # 1 / 0.344715
+    assert bayes_factor_line("a", "b", 1e-7, 1e-6).startswith("B = 1: neither `a` nor `b`")
+
+
+def test_zero_density_points_are_told_apart(sh):
+    # a support that cuts through the mass (m must exceed the largest observation),
+    # and a density that underflows only where the posterior is negligible
+    out = run(sh, "param m positive", "data y = 1.2, 0.5, 2.2", "likelihood y ~ uniform(0, m)",
+              "grid m 0.1 10 201", "compute")
+    assert "the posterior is zero at 135 of 201 grid points (outside a support or " \
+           "constraint)" in out
+    # the density falls as m^-3 beyond 2.2 (three uniform rows, flat prior): the mean
+    # exists and the sd does not (the integral of m^2 m^-3 diverges; common practice)
+    out = run(sh, "mean m", "sd m")
+    assert "no mean" not in out and "sd m: no sd (tails too heavy" in out
+    out = run(sh, "reset", "param a real", "prior a ~ normal(0, 1)",
+              "likelihood log log(inv_logit(a + 3))", "grid a -2000 10 4001", "compute")
+    assert "outside a support" not in out
+    assert "all where the posterior is negligible (it underflows in double precision there)" \
+        in out
+
+
+def test_too_coarse_is_not_said_of_a_settled_grid(sh):
+    # a positive parameter on a wide log-scale grid: 0.075 nodes per sd at the middle
+    # node (in its own units), yet the sd is settled to 2e-8; the sd of gamma(3, 1)
+    # is sqrt(3) (scipy.stats.gamma)
+    out = run(sh, "param s positive", "prior s ~ gamma(3, 1)", "grid s 1e-4 1e8 121",
+              "compute", "sd s")
+    assert "too coarse" not in out
+    a = sh.app.ws.sd("s").detail
+    assert abs(a.value - st.gamma(3).std()) <= a.error < 1e-6
+    # a linear grid that really is too coarse still earns the warning
+    out = run(sh, "param m real", "prior m ~ normal(0, 1)", "grid m -8 8 17", "compute")
+    assert "too coarse for its spread" in out

@@ -7,9 +7,10 @@ line holding it, with the workspace's state, the session log and the files in th
 folder unchanged. No case may leave a file behind that it tried to create by
 running code (`pwned`). A few cases also run through `quadrat` in a subprocess.
 
-The one number the table expects, `mean p = 0.314286` of the base model, is the
-posterior mean 11/35 of beta(2 + 9, 3 + 21): beta-binomial conjugacy (common
-practice) for the prior beta(2, 3) and 9 successes in 30 trials.
+The one number the table expects, `mean p = 0.31429` of the base model (shown to the
+digit its error supports), is the posterior mean 11/35 of beta(2 + 9, 3 + 21):
+beta-binomial conjugacy (common practice) for the prior beta(2, 3) and 9 successes in
+30 trials.
 """
 
 from __future__ import annotations

@@ -339,7 +339,7 @@ def test_keep_and_compare_give_the_closed_form_bayes_factor(model):
     ref = (sc.betaln(11, 24) - sc.betaln(2, 3)) - (sc.betaln(10, 22) - sc.betaln(1, 1))
     got = value(out, "log Bayes factor of `informed` over `flat`")[0]
     assert got == pytest.approx(ref, abs=2e-6)
-    assert f"Bayes factor = {float(f'{math.exp(got):.6g}'):g} in favour of `informed`" in out
+    assert f"B = {float(f'{math.exp(got):.6g}'):g} in favour of `informed` over `flat`" in out
 
 
 def test_compare_cautions_on_a_wide_prior(sh):

@@ -318,18 +318,30 @@ def ask_compare(app, line: Line) -> Asked:
     c = app.ws.compare(w[1].text, w[2].text)
     est = c.log_bf
     a = c.answer
-    bf = c.bayes_factor
     lines = [f"log Bayes factor of `{c.first.name}` over `{c.second.name}` = "
-             f"{R.with_error(est.value, est.error)}"]
-    favoured = c.first.name if est.value > 0 else c.second.name
-    lines.append(f"Bayes factor = {R.num(bf) if math.isfinite(bf) else 'above 1e307'}"
-                 + (f" in favour of `{favoured}`" if est.value != 0 else ""))
+             f"{R.with_error(est.value, est.error)}",
+             bayes_factor_line(c.first.name, c.second.name, est.value, est.error)]
     for k in (c.first, c.second):
         ev = k.log_evidence
         lines.append(f"  {k.name}: log evidence {R.with_error(ev.value, ev.error)} on "
                      f"{R.count(k.points)} points; data {k.data_rows}")
     lines += [f"caution: {n}" for n in c.notes]
     return Asked(a, tuple(lines), Shown(line.text, a.values, R.check_tol(a.values, a.errors)))
+
+
+def bayes_factor_line(first: str, second: str, log_bf: float, error: float | None) -> str:
+    """``B = 2.9 in favour of `a` over `b```: the factor of the favoured model, above
+    1, to the digit the error of its log supports; neither is favoured when the log
+    is not told from 0."""
+    if log_bf == 0 or (error is not None and abs(log_bf) < 2 * error):
+        return (f"B = 1: neither `{first}` nor `{second}` is favoured (the log Bayes factor "
+                "is within its error of 0)")
+    win, lose = (first, second) if log_bf > 0 else (second, first)
+    size = abs(log_bf)
+    b = math.exp(size) if size < 709 else math.inf
+    shown = R.to_error(b, b * error if error is not None else None) if math.isfinite(b) \
+        else "above 1e307"
+    return f"B = {shown} in favour of `{win}` over `{lose}`"
 
 
 question("compare", "compare NAME NAME", ask=ask_compare, group="arrival",

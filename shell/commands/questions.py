@@ -64,11 +64,12 @@ def no_moment_line(d: NoMoment) -> str:
     """``no mean (tails too heavy: ...); median ..., 95% central interval ...``."""
     text = f"no {d.kind} ({d.reason})"
     if d.median is not None:
-        text += (f"; median {R.with_error(d.median.value, d.median.error)}, 95% central "
-                 f"interval {R.num(d.lo.value)} .. {R.num(d.hi.value)}")
         errs = [e.error for e in (d.lo, d.hi) if e.error is not None]
-        if errs:
-            text += f"  ({R.err(max(errs))})"
+        e = max(errs) if errs else None
+        text += (f"; median {R.with_error(d.median.value, d.median.error)}, 95% central "
+                 f"interval {R.to_error(d.lo.value, e)} .. {R.to_error(d.hi.value, e)}")
+        if e is not None:
+            text += f"  ({R.err(e)})"
     return text
 
 
