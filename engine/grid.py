@@ -385,6 +385,20 @@ class Grid:
                 c1 = min(cols, c0 + block)
                 yield Block(r * cols + c0, r * cols + c1, r, r + 1, c0, c1)
 
+    def block_at(self, flat: int, block: int) -> Block:
+        """The block of `sub_blocks(block)` holding flat point `flat`."""
+        block = max(1, int(block))
+        cols = self.axes[-1].n
+        r = flat // cols
+        if cols <= block:
+            step = max(1, block // cols)
+            r0 = (r // step) * step
+            r1 = min(self.size // cols, r0 + step)
+            return Block(r0 * cols, r1 * cols, r0, r1, 0, cols)
+        c0 = ((flat % cols) // block) * block
+        c1 = min(cols, c0 + block)
+        return Block(r * cols + c0, r * cols + c1, r, r + 1, c0, c1)
+
     @property
     def lead_shape(self) -> tuple[int, ...]:
         """The shape of every axis but the last (the rows of a block)."""

@@ -101,73 +101,15 @@ def memory_for(grid_points: int, axis_lengths: list[int], pairs: int = 0, *,
     return int(mem)
 
 
-def _sub_grid(grid: Grid, target: int) -> Grid:
-    """A grid over the same bounds, scales and rules with about `target` points."""
-    from .grid import make_axis
-    cont = [a for a in grid.axes if not a.discrete]
-    fixed = math.prod(a.n for a in grid.axes if a.discrete)
-    if not cont:
-        return grid
-    f = (target / max(fixed, 1) / math.prod(a.n for a in cont)) ** (1 / len(cont))
-    axes = []
-    for a in grid.axes:
-        if a.discrete:
-            axes.append(a)
-            continue
-        n = max(5, min(a.n, int(round(a.n * f))))
-        n = min(a.n, n + 1 - n % 2)
-        axes.append(make_axis(a.param(), a.lo, a.hi, n, rule=a.rule, scale=a.scale))
-    return Grid(tuple(axes))
-
-
-@dataclass(frozen=True)
-class Timing:
-    """How long a pass takes: `fixed` seconds plus `per_point` seconds a point."""
-
-    fixed: float
-    per_point: float
-
-
-def timing(compiled: Compiled, grid: Grid, *, small: int = 16_384, large: int = 65_536
-           ) -> Timing:
-    """The time of a compute on `grid`, from timed computes of the real pass on two
-    smaller grids of the same shape on this machine (so every overhead of the pass
-    is counted, not only the density)."""
-    from .posterior import compute
-    smallest = math.prod(a.n if a.discrete else min(a.n, 5) for a in grid.axes)
-    if smallest > large:
-        # too many dimensions for a small grid of the same shape: time the density and
-        # the reduction on sample points instead
-        return Timing(0.0, _sampled_seconds(compiled, grid))
-    if grid.size <= large:
-        g = grid
-        t0 = time.perf_counter()
-        compute(compiled, g, pairs=[], store=False)
-        t = time.perf_counter() - t0
-        return Timing(0.0, t / max(g.size, 1))
-    times = []
-    for target in (small, large):
-        g = _sub_grid(grid, target)
-        best = math.inf
-        for _ in range(2):
-            t0 = time.perf_counter()
-            compute(compiled, g, pairs=[], store=False)
-            best = min(best, time.perf_counter() - t0)
-        times.append((g.size, best))
-    (n1, t1), (n2, t2) = times
-    slope = (t2 - t1) / (n2 - n1) if n2 > n1 else t2 / n2
-    slope = max(slope, t2 / n2 * 0.5)
-    return Timing(max(t2 - slope * n2, 0.0), slope)
-
-
-def _sampled_seconds(compiled: Compiled, grid: Grid, sample: int = 20_000) -> float:
+def _sampled_seconds(compiled: Compiled, grid: Grid, sample: int = 20_000, *,
+                     repeats: int = 3) -> float:
     """Seconds per point from the density and a reduction's share on random points."""
     rng = np.random.default_rng(0)
     idx = tuple(rng.integers(0, a.n, size=sample) for a in grid.axes)
     theta = [a.values[i] for a, i in zip(grid.axes, idx)]
     evaluate_block(compiled, theta)
     best = math.inf
-    for _ in range(3):
+    for _ in range(repeats):
         t0 = time.perf_counter()
         lp = evaluate_block(compiled, theta)
         lw = np.zeros(sample)
@@ -184,29 +126,49 @@ def _sampled_seconds(compiled: Compiled, grid: Grid, sample: int = 20_000) -> fl
 
 def seconds_per_point(compiled: Compiled, grid: Grid) -> float:
     """Measured seconds per grid point of the whole pass (density and reduction)."""
-    return timing(compiled, grid).per_point
+    return pass_timing(compiled, grid).per_point
 
 
-#: A quick estimate above this many seconds is replaced by the precise one.
-QUICK_SECONDS = 2.0
+#: A quick look that predicts less than this many seconds is taken as it is.
+TINY_SECONDS = 0.05
 #: The reduction's share of a pass, over the density's, on sample points (measured
 #: on this kind of machine with tests/bench_cost.py; only used for a first look).
 QUICK_FACTOR = 2.0
+#: A timed block stops growing once it takes this long (seconds); `cost` times longer.
+TIMED_SECONDS = 0.01
+PRECISE_SECONDS = 0.05
+
+
+def pass_timing(compiled: Compiled, grid: Grid, *, precise: bool = False):
+    """The `posterior.PassTiming` of `grid`, timed once per compiled model and grid
+    (kept on the compiled model, which belongs to one revision of the model and data)."""
+    from .posterior import _grid_key, pass_timing as timed
+    key = ("timing", _grid_key(grid), precise)
+    got = compiled._cache.get(key)
+    if got is None:
+        got = timed(compiled, grid, enough=PRECISE_SECONDS if precise else TIMED_SECONDS)
+        if len(compiled._cache) > 64:
+            for k in [k for k in compiled._cache if k and k[0] == "timing"]:
+                del compiled._cache[k]
+        compiled._cache[key] = got
+    return got
 
 
 def estimate(compiled: Compiled, grid: Grid, *, pairs: int = 0, precise: bool = False) -> Cost:
     """Points, memory and predicted seconds of computing on `grid`.
 
-    A quick estimate times the density on sample points; when that predicts more
-    than `QUICK_SECONDS`, or when `precise`, the real pass is timed on two smaller
-    grids of the same shape (`timing`)."""
+    A first look times the density on a few sample points; unless that predicts a
+    tiny job, a few blocks of the real pass are timed on this grid (once per compiled
+    model and grid), which costs a small share of the pass itself."""
     points = math.prod(a.n for a in grid.axes)
-    fixed, spp = 0.0, _sampled_seconds(compiled, grid, 4096) * QUICK_FACTOR
-    if precise or spp * points > QUICK_SECONDS:
-        t = timing(compiled, grid)
-        fixed, spp = t.fixed, t.per_point
     mem = memory_for(points, [a.n for a in grid.axes], pairs, levels=grid.levels)
-    return Cost(points, mem, fixed + spp * points, spp, machine_memory())
+    spp = _sampled_seconds(compiled, grid, 16, repeats=1) * QUICK_FACTOR
+    seconds = spp * points
+    # a grid beyond 2^50 points (about 10^15) will never run: the first look is enough
+    if (precise or seconds > TINY_SECONDS) and points < 2**50:
+        t = pass_timing(compiled, grid, precise=precise)
+        seconds, spp = t.seconds(points), t.per_point
+    return Cost(points, mem, seconds, spp, machine_memory())
 
 
 def check_memory(axis_lengths: list[int], *, pair: tuple[str, str] | None = None) -> None:

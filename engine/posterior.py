@@ -1122,14 +1122,106 @@ def _block_source(compiled: Compiled, grid: Grid, reuse: "Posterior | None",
         if logp.shape != (grid.size,):
             raise ComputeError("the log-density given does not match the grid")
         return _Stored(compiled, logp)
-    rng = np.random.default_rng(0)
-    sample = tuple(np.concatenate([[a.n // 2], rng.integers(0, a.n, size=256)])
-                   for a in grid.axes)
-    compiled = compiled.verified(_block_theta(grid, sample))
+    compiled = _verified(compiled, grid)
     nest = _nesting(grid, reuse) if reuse is not None else None
     if nest is not None:
         return _Nested(compiled, nest, reuse)
     return _Fresh(compiled)
+
+
+def _grid_key(grid: Grid) -> tuple:
+    """The content of a grid's axes, as a cache key."""
+    return tuple((a.name, a.lo, a.hi, a.n, a.scale, a.rule) for a in grid.axes)
+
+
+def _verified(compiled: Compiled, grid: Grid) -> Compiled:
+    """`compiled` with its reduced sums checked against row-wise sums at sample points
+    of `grid` (`Compiled.verified`); kept on the compiled model per grid, so that the
+    cost check's timed blocks and the pass share one check."""
+    key = ("verified", _grid_key(grid))
+    got = compiled._cache.get(key)
+    if got is None:
+        rng = np.random.default_rng(0)
+        sample = tuple(np.concatenate([[a.n // 2], rng.integers(0, a.n, size=256)])
+                       for a in grid.axes)
+        got = compiled.verified(_block_theta(grid, sample))
+        if len(compiled._cache) > 64:
+            for k in [k for k in compiled._cache if k and k[0] == "verified"]:
+                del compiled._cache[k]
+        compiled._cache[key] = got
+    return got
+
+
+@dataclass(frozen=True)
+class PassTiming:
+    """What a pass over a grid costs on this machine, from a few of its own blocks.
+
+    Attributes
+    ----------
+    fixed : float
+        Seconds before the first block (the check of reduced sums, the layout).
+    per_point : float
+        Seconds a grid point costs in the blocks timed (their density and sums).
+    finish : float
+        Seconds for the marginals' splines and diagnostics after the last block.
+    spent : float
+        Seconds the timing itself took.
+    """
+
+    fixed: float
+    per_point: float
+    finish: float
+    spent: float
+
+    def seconds(self, points: int) -> float:
+        return self.fixed + self.per_point * points + self.finish
+
+
+#: Seconds of a pass's finish per axis node (the quintic spline of each marginal and
+#: its tail checks; measured on this kind of machine, 2,001-node axes).
+FINISH_PER_NODE = 3e-6
+
+
+def pass_timing(compiled: Compiled, grid: Grid, *, enough: float = 0.01,
+                pairs: Sequence[tuple[int, int]] | None = None) -> PassTiming:
+    """Time the real pass on a few blocks in the middle of `grid`, growing the block
+    (from about 1% of the grid) until one takes `enough` seconds or reaches the pass's
+    own block size. Nothing is kept but the times."""
+    t0 = time.perf_counter()
+    check_grid(grid, compiled.params)
+    pairs = _default_pairs(grid) if pairs is None else pairs
+    source = _block_source(compiled, grid, None, None)
+    tensor = _TensorSums.fits(grid)
+    if tensor:
+        source.on_grid = layout.on_grid(source.compiled, grid)
+        sums = _TensorSums(grid, pairs)
+    fixed = time.perf_counter() - t0
+    watch = _Watch(grid, False)
+    size = max(1, min(256, grid.size // 100))
+    while True:
+        blk = grid.block_at(grid.size // 2, size)
+        took = math.inf
+        for _ in range(2):  # the better of two: a shared machine stops a process now and then
+            t1 = time.perf_counter()
+            with np.errstate(all="ignore"):
+                if tensor:
+                    lp, k, neginf = _tensor_block(source, grid, blk, watch)
+                    sums.add(blk, lp, float(lp.flat[k]))
+                else:
+                    idx = grid.indices(blk.start, blk.stop)
+                    theta = _block_theta(grid, idx)
+                    lp = source(blk.start, blk.stop, idx, theta)
+                    lp[np.isnan(lp)] = -np.inf
+                    _Sums(grid, []).add_block(grid, idx, theta, lp)
+            took = min(took, time.perf_counter() - t1)
+        points = blk.stop - blk.start
+        per_point = took / points
+        # grow while a block is quick, up to the pass's own block and 2% of the grid
+        if took >= enough or size >= BLOCK or 50 * 4 * points > grid.size:
+            break
+        size *= 4
+    finish = FINISH_PER_NODE * sum(a.n for a in grid.axes)
+    return PassTiming(fixed, per_point, finish, time.perf_counter() - t0)
 
 
 def _default_pairs(grid: Grid) -> list[tuple[int, int]]:

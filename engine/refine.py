@@ -9,6 +9,7 @@ every axis on a coarse pass, widening until it is below a threshold.
 from __future__ import annotations
 
 import math
+import time
 import warnings
 from dataclasses import dataclass, field, replace
 from typing import Sequence
@@ -735,6 +736,39 @@ def tracked(post: Posterior) -> dict[str, float]:
     return out
 
 
+def estimated_errors(post: Posterior) -> dict[str, float] | None:
+    """The nested error estimate of every value `tracked` reports, relative as
+    `changes` measures moves; None where one has no estimate (no nested level)."""
+    out: dict[str, float] = {}
+    if post.log_evidence is not None:
+        if post.log_evidence.error is None:
+            return None
+        out["log evidence"] = float(post.log_evidence.error)
+    for name in post.names:
+        m = post.marginals[name]
+        try:
+            ests = {f"mean {name}": post.param_mean(name), f"sd {name}": post.param_sd(name)}
+            iv = post.interval(name, 0.95)
+            ests[f"lo95 {name}"], ests[f"hi95 {name}"] = iv.lo, iv.hi
+        except (ComputeError, ValueError):
+            return None
+        for k, e in ests.items():
+            if e.error is None or not math.isfinite(e.error):
+                return None
+            out[k] = float(e.error) / max(abs(e.value), m.sd, 1e-300)
+    return out
+
+
+def largest_error(post: Posterior) -> tuple[str, float] | None:
+    """The value with the largest estimated error, and that error (see
+    `estimated_errors`)."""
+    errs = estimated_errors(post)
+    if not errs:
+        return None
+    k = max(errs, key=errs.get)
+    return k, errs[k]
+
+
 def changes(old: dict[str, float], new: dict[str, float], post: Posterior) -> dict[str, float]:
     """Relative changes: log evidence by its absolute change (a relative change of the
     evidence); means, sds and interval ends relative to the larger of the value's
@@ -790,6 +824,7 @@ def refine(compiled: Compiled, post: Posterior, *, axis: str | None = None,
             raise GridError(f"`{axis}` is discrete: it is summed exactly and needs no refining")
     if all(a.discrete for a in post.grid.axes):
         raise GridError("every parameter is discrete: the sums are exact; nothing to refine")
+    t0 = time.perf_counter()
     prev_vals = tracked(post)
     steps = [RefineStep(0, post.grid.size, post.evaluated or post.grid.size, post.seconds,
                         prev_vals, {}, None, "")]
@@ -798,20 +833,32 @@ def refine(compiled: Compiled, post: Posterior, *, axis: str | None = None,
     message = ""
     limit = 1 if until is None else max_steps
     for k in range(1, limit + 1):
+        if until is not None:
+            worst = largest_error(current)
+            if worst is not None and worst[1] < until:
+                converged = True
+                message = (f"already within {until:g}: every value's estimated error is below "
+                           f"it (the largest, `{worst[0]}`, {worst[1]:.2g}); no finer pass")
+                break
         grid = refined_grid(current.grid, axis)
         cost = plan.estimate(compiled, grid)
         share = 1.0 if current.logp is None else 1.0 - current.grid.size / grid.size
         predicted = cost.seconds * share
+        left = budget_seconds - (time.perf_counter() - t0)
         mem_cap = memory_limit or int(0.8 * cost.machine_memory)
         if cost.memory > mem_cap:
             message = (f"stopped: the next step ({plan.format_count(grid.size)} points) needs "
                        f"about {cost.memory / 2**30:.1f} GiB of memory")
             break
-        if predicted > budget_seconds:
+        if predicted > left:
+            spent = "" if k == 1 else f" ({budget_seconds - left:.0f} s spent)"
             message = (f"stopped: the next step ({plan.format_count(grid.size)} points) would "
-                       f"take about {predicted:.0f} s, over the budget of {budget_seconds:.0f} s")
+                       f"take about {plan.format_duration(predicted)}, beyond what is left of "
+                       f"the budget of {budget_seconds:.0f} s{spent}; not run")
             break
-        new = compute(compiled, grid, reuse=current, progress=progress)
+        # keep the density while another step may reuse it
+        store = True if until is not None and 8 * grid.size < mem_cap // 4 else None
+        new = compute(compiled, grid, reuse=current, progress=progress, store=store)
         vals = tracked(new)
         ch = changes(prev_vals, vals, new)
         big = max(ch.values()) if ch else 0.0

@@ -6,6 +6,8 @@ text), restated beside each check.
 """
 
 import math
+import re
+import time
 
 import numpy as np
 import pytest
@@ -109,6 +111,46 @@ def test_refine_until_converges_to_beta_binomial_closed_form():
     # each step re-used the nodes it shared with the one before
     for step in rep.steps[1:]:
         assert step.evaluated < step.points
+
+
+def test_refine_until_stops_at_once_when_the_nested_errors_are_below_the_tolerance():
+    # posterior beta(9, 16), evidence C(20,7) B(9,16) / B(2,3) (common practice; scipy):
+    # 201 nodes on the logit scale already reach about 1e-13, so `until 1e-6` needs no
+    # finer pass; it says so, and the answers it keeps are well within the tolerance
+    w = beta_binomial_ws()
+    w.grid("p", 0.001, 0.9, 201)
+    w.compute()
+    before = w.state.posterior
+    rep = w.refine(until=1e-6)
+    assert rep.converged
+    assert re.match(r"already within 1e-06: every value's estimated error is below it "
+                    r"\(the largest, `[a-z0-9 ]+`, [0-9.e+-]+\); no finer pass$", rep.message)
+    assert len(rep.steps) == 1
+    post = w.state.posterior
+    assert post.grid.size == 201 and post is before
+    ref = st.beta(9, 16)
+    logz = math.log(sc.comb(20, 7)) + sc.betaln(9, 16) - sc.betaln(2, 3)
+    for est, want in [(post.log_evidence, logz), (post.param_mean("p"), ref.mean()),
+                      (post.param_sd("p"), ref.std()),
+                      (post.quantile("p", 0.975), ref.ppf(0.975))]:
+        assert est.error < 1e-6
+        assert abs(est.value - want) < 1e-8   # far inside the tolerance, as claimed
+
+
+def test_refine_until_keeps_to_the_budget_across_steps():
+    # each step's blocks are slowed (the progress callback sleeps) so that the steps
+    # spend the budget: the step that would go past what is left is not run, and the
+    # message says so, with what was spent
+    w = beta_binomial_ws()
+    w.grid("p", 0.001, 0.9, 11)
+    w.compute()
+    w.budget_seconds = 1.0
+    rep = w.refine(until=1e-300, progress=lambda done, total: time.sleep(0.3))
+    assert not rep.converged
+    assert re.match(r"stopped: the next step \([0-9,]+ points\) would take about .+, beyond "
+                    r"what is left of the budget of 1 s \([0-9]+ s spent\); not run$", rep.message)
+    assert 2 <= len(rep.steps) <= 5
+    assert sum(st_.seconds for st_ in rep.steps[1:]) < 1.0 + 0.5
 
 
 def test_refine_until_converges_on_normal_inverse_gamma():
