@@ -20,13 +20,24 @@ from dataclasses import dataclass
 from typing import Callable
 
 import numpy as np
-import scipy.stats as st
 import sympy as sp
 
 from . import special as S
 from .errors import ModelError
 
 LOG2PI = sp.log(2 * sp.pi)
+
+
+class _LazyStats:
+    """scipy.stats, imported when a distribution is first frozen: importing it is most
+    of quadrat's start-up time, and many sessions never need it."""
+
+    def __getattr__(self, name):
+        import scipy.stats
+        return getattr(scipy.stats, name)
+
+
+st = _LazyStats()
 
 
 @dataclass(frozen=True)

@@ -30,7 +30,6 @@ from dataclasses import dataclass, field
 from typing import Callable
 
 import numpy as np
-from scipy import stats
 
 from .errors import ComputeError, GridError
 from .nodes import NodeSet, check_dims
@@ -102,6 +101,7 @@ class Exploration:
 
 def initial_drop(d: int, mass: float) -> float:
     """The pruning depth at which a normal posterior leaves `mass` outside."""
+    from scipy import stats   # imported where needed: it is slow to import
     return 0.5 * float(stats.chi2.isf(mass, d))
 
 
