@@ -334,6 +334,8 @@ class SampleSize:
     message: str
     sims: int
     seed: int
+    unit: str = ""              # what one further observation is, in words
+    plateau: bool = False       # the expected width levels off above the target
 
 
 @dataclass(frozen=True)
@@ -401,17 +403,29 @@ def sample_size(post: Posterior, model: Model, name: str, width: float, *, level
         return SampleSize(0, w0, 0.0, (), f"the {level:g} interval of `{name}` is already "
                           f"{w0:.4g} wide: no further observations are needed", sims, seed)
     expected = _Expected(sim, level, kind, progress)
+    unit = (f"one further observation is one row of `{future.column}` ~ "
+            f"{future.family}({', '.join(str(a) for a in future.args)})")
     found = _search(expected, width, max_n)
+    if isinstance(found, _Plateau):
+        return SampleSize(None, found.last.width, found.last.mc_error, expected.steps(),
+                          f"cannot be reached: the expected width levels off near "
+                          f"{found.last.width:.4g} (it fell by less than {100 * PLATEAU:g}% a "
+                          f"doubling of n from {found.first.n:,} to {found.last.n:,} further "
+                          "observations); "
+                          f"the uncertainty that further rows of `{future.column}` do not "
+                          "reduce (parameters they do not inform) dominates the width",
+                          sims, seed, unit, True)
     if found is None:
         at = expected(max_n)
         return SampleSize(None, at.width, at.mc_error, expected.steps(),
                           f"not reached by {max_n:,} further observations (expected "
-                          f"width there {at.width:.4g}); raise `max`", sims, seed)
+                          f"width there {at.width:.4g}); raise `max`", sims, seed, unit)
     msg = ""
     if abs(found.width - width) < 2 * found.mc_error:
         msg = "the expected width is within two Monte Carlo errors of the target; more " \
               "simulations would firm up n"
-    return SampleSize(found.n, found.width, found.mc_error, expected.steps(), msg, sims, seed)
+    return SampleSize(found.n, found.width, found.mc_error, expected.steps(), msg, sims, seed,
+                      unit)
 
 
 def _samplesize_iv(post: Posterior, width: float, level: float, max_n) -> int:
@@ -535,11 +549,32 @@ class _Expected:
         return tuple(sorted(self._tried.values(), key=lambda s: s.n))
 
 
-def _search(expected: _Expected, width: float, max_n: int) -> SampleSizeStep | None:
+#: Relative fall of the expected width over each of two doublings of n below which
+#: it has levelled off (a 1/sqrt(n) fall is 29% a doubling; the same simulated rows
+#: serve every n, so the falls are much surer than the widths' own Monte Carlo errors).
+PLATEAU = 0.03
+
+
+@dataclass(frozen=True)
+class _Plateau:
+    """The expected width stopped falling between the `first` and `last` n tried."""
+
+    first: SampleSizeStep
+    last: SampleSizeStep
+
+
+def _search(expected: _Expected, width: float, max_n: int
+            ) -> SampleSizeStep | _Plateau | None:
     """The smallest n whose expected width is at most `width`: doubling, then
-    bisection; None if not reached by `max_n`."""
+    bisection; a `_Plateau` when two doublings in a row barely narrow it; None if
+    not reached by `max_n`."""
     lo, hi = 0, 1
+    seen: list[SampleSizeStep] = []
     while expected(hi).width > width:
+        seen.append(expected(hi))
+        if len(seen) >= 3 and seen[-3].n >= 16 and all(
+                a.width - b.width < PLATEAU * a.width for a, b in zip(seen[-3:], seen[-2:])):
+            return _Plateau(seen[-3], seen[-1])
         if hi >= max_n:
             return None
         lo, hi = hi, min(2 * hi, max_n)

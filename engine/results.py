@@ -140,7 +140,8 @@ class Needed:
 
     @property
     def checked(self) -> tuple[float, ...]:
-        return (float(self.n) if self.n is not None else math.nan, self.width)
+        # not reached: -1 stands for "none", so that a check line can state it
+        return (float(self.n) if self.n is not None else -1.0, self.width)
 
     @property
     def errors(self) -> tuple[float | None, ...]:

@@ -9,6 +9,7 @@ each check). The data are small invented numbers used only as test input.
 from __future__ import annotations
 
 import math
+import os
 
 import numpy as np
 import pytest
@@ -330,3 +331,23 @@ def test_too_coarse_is_not_said_of_a_settled_grid(sh):
     # a linear grid that really is too coarse still earns the warning
     out = run(sh, "param m real", "prior m ~ normal(0, 1)", "grid m -8 8 17", "compute")
     assert "too coarse for its spread" in out
+
+
+# ---------------------------------------------------------------------------
+# samplesize
+
+def test_samplesize_says_a_levelled_width_cannot_be_reached(sh):
+    # invented numbers: prevalence with an imperfect test whose sensitivity and
+    # specificity are known only from small validation studies; batches of 100 people.
+    # More batches pin the positive rate, not the prevalence: the width of the
+    # prevalence's interval levels off (the test's uncertainty dominates)
+    out = run(sh, "param prev unit", "param se unit", "param sp unit",
+              "prior se ~ beta(45, 5)", "prior sp ~ beta(95, 5)",
+              "data k = 12, 9", "likelihood k ~ binomial(100, prev * se + (1 - prev) * (1 - sp))",
+              "grid prev 0.0005 0.4 41", "grid se 0.6 0.99 21", "grid sp 0.85 0.999 21",
+              "compute", "samplesize prev width 0.01 sims 20 max 4096", "save ss.qd")
+    assert "cannot be reached: the expected width levels off near" in out
+    assert "parameters they do not inform" in out
+    assert "one further observation is one row of `k` ~ binomial(100" in out
+    text = open(os.path.join(sh.app.ws.base_dir, "ss.qd")).read()
+    assert "check samplesize prev width 0.01 sims 20 max 4096 = -1, " in text

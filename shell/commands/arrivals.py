@@ -237,6 +237,8 @@ def ask_samplesize(app, line: Line) -> Asked:
     what = f"{d.level:g} {d.kind} interval of `{o.name}`"
     if n is None:
         lines.append(f"{line.text}: {res.message}")
+        lines.append(f"{line.text} = none, {R.num(d.width, 4)} at {R.count(res.steps[-1].n)}"
+                     if res.steps else f"{line.text} = none")
     elif n == 0:
         lines.append(f"{line.text} = 0, {R.num(d.width)}")
         lines.append(res.message)
@@ -247,9 +249,13 @@ def ask_samplesize(app, line: Line) -> Asked:
                      f"error {R.num(d.mc_error, 2)}; {res.sims} simulations, seed {res.seed})")
         if res.message:
             lines.append(f"note: {res.message}")
+    if res.unit:
+        lines.append(f"note: {res.unit}")
     # n is exact for the seed; the width is a deterministic function of it
-    tol = R.check_tol(a.values, (None, None)) if n is not None else 0.0
-    return Asked(a, tuple(lines), Shown(line.text, a.values, tol) if n is not None else None)
+    # not reached: the check states n as -1 (none) and the width where the search
+    # stopped; the tolerance 0.5 holds n exactly (the width is fixed by the seed)
+    tol = R.check_tol(a.values, (None, None)) if n is not None else 0.5
+    return Asked(a, tuple(lines), Shown(line.text, a.values, tol))
 
 
 def _complete_samplesize(words, text):
@@ -278,8 +284,12 @@ question("samplesize", SAMPLESIZE_USAGE, ask=ask_samplesize, complete=_complete_
     Monte Carlo error, then the smallest n that reaches W (searched up to `max`, default
     10000). When the future rows are ambiguous (a likelihood that reads other columns, or
     several likelihood terms), name them with `using COL ~ FAMILY(args)`. `hpd` measures
-    highest-density intervals instead of central ones. Inside a what-if layer it answers
-    for the what-if state.""")
+    highest-density intervals instead of central ones. One further observation is one
+    row of that likelihood (a row of `k ~ binomial(100, p)` is a batch of 100 trials);
+    the answer says so. When the expected width levels off above W (the uncertainty of
+    parameters the new rows do not inform dominates), it says that W cannot be reached
+    instead of searching on. More `sims N` lower the Monte Carlo error at the cost of
+    time. Inside a what-if layer it answers for the what-if state.""")
 
 
 # ---------------------------------------------------------------------------
