@@ -39,8 +39,8 @@ MODEL = ["param a real", "prior a ~ normal(0, 1000)", "data y = 1:400", "param s
          "likelihood y ~ cauchy(a, s)", "prior s ~ gamma(2, 0.01)", "grid a 150 250 41",
          "grid s 50 300 41", "compute", "mean a", "interval s 0.9"]
 #: A grid that takes several seconds to compute: the hang-up comes in the middle.
-SLOW = ["grid a 150 250 1001", "grid s 50 300 1001", "compute"]
-SLOW_SEEN = "s: 50 .. 300, 1001 points"
+SLOW = ["grid a 150 250 2001", "grid s 50 300 2001", "compute"]
+SLOW_SEEN = "s: 50 .. 300, 2001 points"
 
 
 def app_in(tmp_path, **kw):
