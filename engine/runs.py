@@ -192,7 +192,7 @@ def fresh(s: State, *, budget_seconds: float) -> Outcome:
         return Outcome(s, Fresh(s.posterior))
     if s.frame_rule is not None:
         return framing.fresh(s, budget_seconds=budget_seconds)
-    what = "no posterior yet" if s.posterior is None else "the posterior is out of date"
+    what = "no posterior yet" if s.posterior is None else stale_reason(s)
     compiled = s.compiled()
     check_count(s, compiled)
     size = sizing(s, compiled)
@@ -203,9 +203,31 @@ def fresh(s: State, *, budget_seconds: float) -> Outcome:
     out = _compute_on(s, compiled, size, budget_seconds=budget_seconds, progress=None,
                       force=False)
     rep = out.result
+    again = "computed first" if s.posterior is None else "recomputed on the whole grid"
     return Outcome(out.state, Fresh(out.state.posterior,
-                                    (f"{what}: computed first ({rep.points:,} points)",)
+                                    (f"{what}: {again} ({rep.points:,} points)",)
                                     + rep.notes + rep.warnings))
+
+
+def stale_reason(s: State) -> str:
+    """Why the state's posterior is out of date, in words: what changed since it was
+    computed."""
+    old, new = s.basis, s.own_basis
+    if old is None:
+        return "the posterior is out of date"
+    changed = []
+    if old.model != new.model:
+        changed.append("the model")
+    if old.data != new.data:
+        changed.append("the data")
+    if old.specs != new.specs:
+        changed.append("the grid")
+    if old.rule != new.rule or old.choice != new.choice:
+        changed.append("the rule")
+    if not changed:
+        return "the posterior is out of date"
+    what = changed[0] if len(changed) == 1 else ", ".join(changed[:-1]) + " and " + changed[-1]
+    return f"{what} changed since the posterior was computed"
 
 
 def computed(s: State, *, budget_seconds: float, progress: Progress = None) -> Outcome:

@@ -236,6 +236,15 @@ class Workspace:
         """The current posterior; computed first when out of date and cheap."""
         return self._commit(runs.fresh(self.state, budget_seconds=self.budget_seconds))
 
+    def posterior_beside(self) -> Fresh | None:
+        """Inside a what-if layer: the posterior as things are (computed first when out
+        of date and cheap, and kept in the layer); None outside a layer."""
+        if self._layer is None:
+            return None
+        out = runs.fresh(self._layer.base, budget_seconds=self.budget_seconds)
+        self._layer = self._layer.with_base(out.state)
+        return out.result
+
     def joint(self, a: str, b: str) -> Joint:
         """The 2-D posterior marginal of parameters `a` and `b`."""
         return self._commit(asking.joint(self.state, a, b, budget_seconds=self.budget_seconds))

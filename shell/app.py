@@ -126,7 +126,8 @@ class App:
         try:
             check_characters(line)
             cmd = self.lookup(line)
-            with R.showing(self.digits):
+            waits = cmd.kind == "question" or cmd.name == "plot"
+            with R.showing(self.digits), self.printer.waiting(line.text, active=waits):
                 reply = cmd.handler(self, line) or Reply()
         except (Quit, BrokenPipeError):
             raise   # leaving, or the reader of the output went away (`| head`)

@@ -4,8 +4,10 @@ Four pictures, each a pure function returning a string:
 
 - `marginal`     a 1-D posterior marginal: a line (continuous) or sticks (discrete),
                  with an optional interval shaded under the curve;
-- `joint`        a 2-D joint marginal as a picture of characters whose darkness
-                 follows the density (the ramp ``RAMP``), coloured when asked;
+- `joint`        a 2-D joint marginal as a picture of its credible regions: each
+                 character cell shaded by the smallest of the regions of highest
+                 density holding 50%, 80%, 95%, 99% and 99.9% of the mass that it
+                 lies in (the ramp ``RAMP``, legend above), coloured when asked;
 - `histogram`    the distribution of a derived quantity, from bin edges and densities;
 - `convergence`  how quantities moved over refinement steps, on a log axis when they
                  span decades.
@@ -39,8 +41,11 @@ import plotext
 
 __all__ = ["RAMP", "MIN_WIDTH", "MIN_HEIGHT", "marginal", "joint", "histogram", "convergence"]
 
-#: Characters from empty to densest, one per density level of `joint`.
-RAMP = " .:-=+*#%@"
+#: Characters from empty to densest, one per credible region of `joint`: a cell in the
+#: region of highest density holding REGIONS[k] of the mass (and in no smaller one)
+#: shows RAMP[k + 1]; a cell outside the largest region is blank.
+RAMP = " ·░▒▓█"
+REGIONS = (0.999, 0.99, 0.95, 0.8, 0.5)
 
 #: Smallest plot accepted, in terminal columns and rows.
 MIN_WIDTH = 20
@@ -53,14 +58,14 @@ MAX_HEIGHT = 1000
 # the sticks of a discrete marginal inside its interval, and the one drawing the bars
 # of a dense discrete marginal outside it.
 _SHADE = "·"
+# The dots of a second marginal drawn over the first.
+_DOT = "•"
 _BOLD = "█"
 _LIGHT = "░"
 # Markers of the convergence series, told apart without colour.
 _SERIES_MARKERS = "*+ox#%&@"
-# 256-colour codes for the ramp levels 1..9 (dark purple to yellow, after viridis).
-_RAMP_COLOURS = (54, 61, 67, 31, 36, 72, 113, 149, 220)
-# Cells whose mass is below this fraction of the densest cell are left blank.
-_BLANK_FRACTION = 0.005
+# 256-colour codes for the ramp levels 1..5 (dark blue to amber).
+_RAMP_COLOURS = (60, 67, 73, 143, 214)
 # Rows of a plot that are not canvas: the frame top and bottom, the x ticks, the labels.
 _FRAME_ROWS = 4
 
@@ -73,7 +78,7 @@ _LOCK = threading.Lock()
 # --------------------------------------------------------------------------------------
 
 def marginal(values, density, *, name, width=80, height=20, discrete=False,
-             interval=None, color=False) -> str:
+             interval=None, color=False, beside=None, labels=("what if", "now")) -> str:
     """Plot a 1-D posterior marginal.
 
     Parameters
@@ -97,6 +102,9 @@ def marginal(values, density, *, name, width=80, height=20, discrete=False,
         are solid inside the interval and light shade outside). A title line says so.
     color : bool
         Colour the curve; when False the text has no ANSI codes.
+    beside : (values, density), optional
+        A second continuous marginal drawn over the first as a row of dots, on the
+        same axes (the "now" of a what-if); the legend names both by `labels`.
 
     Returns
     -------
@@ -107,10 +115,22 @@ def marginal(values, density, *, name, width=80, height=20, discrete=False,
     name = _check_label(name, "name")
     x, y = _marginal_points(values, density, discrete)
     ends = _interval(interval)
-    view = _marginal_view(x, y, discrete, width)
+    other = None
+    if beside is not None and not discrete:
+        other = _marginal_points(beside[0], beside[1], False)
+        span = (min(x[0], other[0][0]), max(x[-1], other[0][-1]))
+        view = _marginal_view(x, y, discrete, width, xlim=span,
+                              ymax=max(float(y.max()), float(other[1].max())))
+    else:
+        view = _marginal_view(x, y, discrete, width)
 
     title = None
-    if ends is not None:
+    if other is not None:
+        first, second = labels
+        iv = f"   {_SHADE} {first} 95%: {_short(ends[0])} to {_short(ends[1])}" if ends else ""
+        title = _first_fit([f"curve: {first}   {_DOT}{_DOT}{_DOT}: {second}{iv}",
+                            f"curve: {first}   {_DOT}{_DOT}{_DOT}: {second}"], width)
+    elif ends is not None:
         mark = _BOLD if discrete else _SHADE
         title = _first_fit([f"{mark} interval {_short(ends[0])} to {_short(ends[1])}",
                             f"{mark} {_short(ends[0])} to {_short(ends[1])}"], width)
@@ -123,6 +143,12 @@ def marginal(values, density, *, name, width=80, height=20, discrete=False,
             _draw_sticks(fig, view, ends, width)
         else:
             _draw_curve(fig, view, ends, width, canvas_rows)
+            if other is not None:
+                ox, oy = other
+                u = view.xspan(ox)
+                v = oy / view.yspan.hi
+                ut, vt = _thin_even(u, v, width)
+                fig.draw(fig.signal(ut.tolist(), vt.tolist(), marker=_DOT))
         _set_axes(fig, width, canvas_rows, view.xspan, view.yspan, xint=view.integer_x)
         ylabel, xlabel = _bar_labels(width, "probability" if discrete else "density", name)
         _set_labels(fig, ylabel, xlabel)
@@ -170,15 +196,18 @@ class _MarginalView:
     integer_x: bool
 
 
-def _marginal_view(x: np.ndarray, y: np.ndarray, discrete: bool, width: int) -> _MarginalView:
-    if discrete:
+def _marginal_view(x: np.ndarray, y: np.ndarray, discrete: bool, width: int, *,
+                   xlim=None, ymax=None) -> _MarginalView:
+    if xlim is not None:
+        xspan = _span(float(xlim[0]), float(xlim[1]), "values")
+    elif discrete:
         gaps = np.diff(x)
         half = 0.5 * (float(gaps.min()) if gaps.size else 1.0)
         xspan = _span(float(x[0]) - half, float(x[-1]) + half, "values")
     else:
         xspan = _span(float(x[0]), float(x[-1]), "values")
     integer_x = discrete and bool(np.all(x == np.round(x)))
-    ymax = float(y.max())
+    ymax = float(y.max()) if ymax is None else float(ymax)
     u, v = xspan(x), y / ymax                 # what plotext sees: values in [0, 1]
     # More values than columns: sticks would alias into uneven gaps, so the values under
     # each quarter column are drawn as one bar at their mean probability.
@@ -276,7 +305,7 @@ def joint(xvalues, yvalues, mass, *, xname, yname, width=80, height=24, color=Fa
     nodes = _joint_nodes(xvalues, yvalues, mass)
     xspan = _span(*_outer_edges(nodes.x), "xvalues")
     yspan = _span(*_outer_edges(nodes.y), "yvalues")
-    title = _first_fit([f"density  low {RAMP[1:]} high", f"low {RAMP[1:]} high", RAMP[1:]], width)
+    title = _first_fit([ramp_legend(), ramp_legend(short=True)], width)
     canvas_rows = height - _FRAME_ROWS - 1
 
     with _figure(width, height, color) as fig:
@@ -755,13 +784,39 @@ def _rebin(source: np.ndarray, mass: np.ndarray, target: np.ndarray, axis: int =
     return np.moveaxis(np.clip(np.diff(at, axis=0), 0.0, None), 0, axis)
 
 
+def ramp_legend(short: bool = False) -> str:
+    """``credible regions  █ 50%  ▓ 80%  ▒ 95%  ░ 99%  · 99.9%``."""
+    marks = [f"{RAMP[k + 1]} {100 * p:g}%" for k, p in reversed(list(enumerate(REGIONS)))]
+    return ("regions " if short else "credible regions  ") + ("  " if not short else " ").join(
+        marks)
+
+
 def _levels(cells: np.ndarray) -> np.ndarray:
-    """Ramp level (0 blank .. 9 densest) of each cell from its share of the top cell."""
-    fraction = cells / cells.max()
-    top = len(RAMP) - 1
-    level = np.clip(np.ceil(fraction * top - 1e-9), 0, top).astype(int)
-    level[fraction < _BLANK_FRACTION] = 0
-    return level
+    """Ramp level of each cell (0 blank .. len(REGIONS) densest): the smallest region of
+    highest density it lies in. A cell is in the region holding p of the mass when the
+    cells denser than it hold less than p, so cells of equal mass share a level."""
+    # masses equal but for rounding in the re-binning count as ties
+    flat = np.round(cells.ravel() / cells.max() * 1e9)
+    total = float(flat.sum())
+    order = np.argsort(-flat, kind="stable")
+    sorted_mass = flat[order]
+    denser = np.concatenate([[0.0], np.cumsum(sorted_mass)[:-1]]) / total
+    # cells tied in mass: the mass strictly denser than the first of them
+    first = np.searchsorted(-sorted_mass, -sorted_mass, side="left")
+    denser = denser[first]
+    level_sorted = np.zeros(flat.size, dtype=int)
+    for k, p in enumerate(REGIONS):
+        level_sorted[denser < p] = k + 1
+    level_sorted[sorted_mass <= 0] = 0
+    level = np.empty_like(level_sorted)
+    level[order] = level_sorted
+    return level.reshape(cells.shape)
+
+
+def _thin_even(u: np.ndarray, v: np.ndarray, width: int) -> tuple[np.ndarray, np.ndarray]:
+    """A curve on [0, 1] as one point every other column: a dotted line."""
+    us = np.linspace(max(float(u[0]), 0.0), min(float(u[-1]), 1.0), max(width // 2, 2))
+    return us, np.interp(us, u, v)
 
 
 def _thin(x: np.ndarray, y: np.ndarray, bins: int) -> tuple[np.ndarray, np.ndarray]:

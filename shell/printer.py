@@ -11,6 +11,7 @@ from __future__ import annotations
 import os
 import shutil
 import sys
+import threading
 import time
 import unicodedata
 from typing import Callable, Iterable, TextIO
@@ -92,6 +93,7 @@ class Printer:
         self.clock = clock
         self.more: Callable[[], bool] | None = None
         self.written = 0
+        self.busy: "Waiting | None" = None      # a waiting line to clear before writing
 
     @property
     def width(self) -> int:
@@ -134,7 +136,12 @@ class Printer:
     def _fitted(self, text: str) -> list[str]:
         return wrap(text, self.width) if self.wrap else [text]
 
+    def _settle(self) -> None:
+        if self.busy is not None:
+            self.busy.finish()
+
     def line(self, text: str = "", style: str | None = None) -> None:
+        self._settle()
         for piece in self._fitted(text):
             self.out.write(self._paint(piece, style) + "\n")
             self.written += 1
@@ -151,6 +158,7 @@ class Printer:
 
     def block(self, text: str) -> None:
         """A picture already drawn to the width: written as it is, never wrapped."""
+        self._settle()
         for x in text.splitlines():
             self.out.write(x + "\n")
             self.written += 1
@@ -185,6 +193,7 @@ class Printer:
         self.line("warning: " + visible(text), "warning")
 
     def error(self, text: str) -> None:
+        self._settle()
         for piece in self._fitted(visible(text)):
             self.err.write(self._paint(piece, "error") + "\n")
             if self.err is self.out:
@@ -193,6 +202,63 @@ class Printer:
 
     def progress(self) -> "Progress":
         return Progress(self)
+
+    def waiting(self, what: str, *, active: bool = True) -> "Waiting":
+        """A line that counts the seconds of a command with no bar of its own, once it
+        has taken more than a second (on a terminal without NO_COLOR only; never when
+        not `active`)."""
+        return Waiting(self, what, active=active)
+
+
+class Waiting:
+    """``working on `prob p > 0.5`: 3 s (Ctrl-C cancels)``, redrawn from a thread
+    while the command runs, and cleared when it ends (Ctrl-C included)."""
+
+    DELAY = 1.0
+    EVERY = 0.5
+
+    def __init__(self, printer: "Printer", what: str, *, active: bool = True):
+        self.printer = printer
+        self.active = active
+        self.what = visible(what if len(what) <= 40 else what[:37] + "...")
+        self.stop = threading.Event()
+        self.drawn = False
+        self.thread: threading.Thread | None = None
+
+    def __enter__(self) -> "Waiting":
+        if self.printer.color and self.active:
+            self.printer.busy = self
+            self.thread = threading.Thread(target=self._run, daemon=True)
+            self.thread.start()
+        return self
+
+    def _run(self) -> None:
+        t0 = time.monotonic()
+        if self.stop.wait(self.DELAY):
+            return
+        p = self.printer
+        while not self.stop.is_set():
+            text = f"working on `{self.what}`: {time.monotonic() - t0:.0f} s (Ctrl-C cancels)"
+            p.out.write("\r" + text[:p.width - 1])
+            p.out.flush()
+            self.drawn = True
+            self.stop.wait(self.EVERY)
+
+    def finish(self) -> None:
+        """Stop counting and clear the line (before anything else is written)."""
+        self.stop.set()
+        if self.thread is not None:
+            self.thread.join()
+            self.thread = None
+        if self.printer.busy is self:
+            self.printer.busy = None
+        if self.drawn:
+            self.drawn = False
+            self.printer.out.write("\r" + " " * (self.printer.width - 1) + "\r")
+            self.printer.out.flush()
+
+    def __exit__(self, *exc) -> None:
+        self.finish()
 
 
 class Progress:

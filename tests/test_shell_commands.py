@@ -323,7 +323,9 @@ def test_question_after_a_change_recomputes_when_cheap(model):
     model.take()
     model("mean p")
     out = model.take()[0]
-    assert "note: the posterior is out of date: computed first" in out
+    # the note says what changed and what is recomputed
+    assert "note: the model changed since the posterior was computed: recomputed on the " \
+           "whole grid (" in out
     # posterior beta(1 + 9, 1 + 21) (conjugacy, common practice): scipy.stats.beta
     assert value(out, "mean p")[0] == shown(st.beta(10, 22).mean())
 

@@ -151,7 +151,7 @@ def test_the_scenario_fits_the_terminal(width, height):
     # one screen; its legend (the density ramp) and both axis names in it
     plot = outputs[SCENARIO[-1]]
     assert len(plot) + 3 <= height
-    assert any("low" in x and "high" in x for x in plot)
+    assert any("credible regions" in x and "50%" in x for x in plot)
     assert "weibull_shape" in plot[-1] and "weibull_scale" in plot[-1]
 
 
@@ -235,7 +235,7 @@ def test_in_a_real_terminal(tmp_path, width, height):
         # the plot's command line and its legend are on the screen with the plot
         assert any(r.startswith("quadrat (what-if)> plot weibull_shape weibull_scale")
                    for r in rows), screen
-        assert any("low" in r and "high" in r for r in rows), screen
+        assert any("credible regions" in r and "99.9%" in r for r in rows), screen
         # the toolbar: the last row, the log evidence whole
         bottom = [r for r in rows if r.strip()][-1]
         m = re.search(r"log ev(idence)? (-?[\d.]+) ", bottom)
@@ -249,3 +249,35 @@ def test_in_a_real_terminal(tmp_path, width, height):
         t.type("q")
     finally:
         t.close()
+
+
+def test_a_slow_question_shows_it_is_working_and_clears_the_line():
+    import threading
+
+    from shell.printer import Waiting
+
+    class Terminal(io.StringIO):
+        def isatty(self):
+            return True
+
+    out = Terminal()
+    p = Printer(out, width=60, color=True)
+    old = Waiting.DELAY, Waiting.EVERY
+    Waiting.DELAY, Waiting.EVERY = 0.05, 0.02
+    try:
+        done = threading.Event()
+        with p.waiting("prob weibull_shape > 1"):
+            done.wait(0.3)                      # the question takes its time
+            p.line("P(weibull_shape > 1) = 0.988364")
+        text = out.getvalue()
+    finally:
+        Waiting.DELAY, Waiting.EVERY = old
+    assert "\rworking on `prob weibull_shape > 1`: 0 s (Ctrl-C cancels)" in text
+    # the answer comes after the line was cleared, and nothing is drawn after it
+    cleared = "\r" + " " * 59 + "\r"
+    assert text.endswith(cleared + "P(weibull_shape > 1) = 0.988364\n")
+    # off a terminal nothing is drawn
+    quiet = io.StringIO()
+    with Printer(quiet, width=60, color=False).waiting("mean p"):
+        time.sleep(0.01)
+    assert quiet.getvalue() == ""

@@ -9,6 +9,7 @@ import numpy as np
 
 from engine import export as E
 from engine.errors import QuadratError
+from engine.files import atomic_write
 from engine.framing import is_node
 from engine.model import ReducedTerm
 
@@ -153,7 +154,63 @@ def _complete_plot(words, text):
     return Slot(params=True) if len(words) == 2 and words[1] != "refine" else NOTHING
 
 
-PLOT_USAGE = "plot NAME [NAME2]  or  plot refine"
+PLOT_USAGE = "plot NAME [NAME2] [to FILE.txt [force]]  or  plot refine [to FILE.txt [force]]"
+
+
+class _Picture:
+    """Where a picture goes: the screen (the printer itself), or a text file, drawn
+    without colour at its natural size."""
+
+    def __init__(self, printer):
+        self.printer = printer
+        self.width = printer.width
+        self.color = False
+        self.text = ""
+
+    def room(self, natural: int, **_) -> int:
+        return natural
+
+    def block(self, text: str) -> None:
+        self.text += text + "\n"
+
+    def lines(self, items) -> None:
+        from ..layout import Table
+        for t in items:
+            self.text += "\n".join(t.fit(self.width) if isinstance(t, Table) else [t]) + "\n"
+
+    def note(self, text: str) -> None:
+        self.printer.note(text)
+
+
+def _destination(app, line: Line):
+    """``... to FILE.txt [force]`` at the end of a plot line: the words before it, and
+    the file (as typed, and the checked place to write it) or None."""
+    w = list(line.words)
+    k = next((i for i, x in enumerate(w) if x.text == "to" and i >= 2), None)
+    if k is None:
+        return w, None
+    rest = w[k + 1:]
+    force = bool(rest) and rest[-1].text == "force" and len(rest) == 2
+    if force:
+        rest = rest[:-1]
+    if len(rest) != 1:
+        if not rest:
+            raise ShellError("`to` needs a file name, as in `plot p to p_plot.txt`",
+                             line.end_column())
+        raise ShellError(f"unexpected `{rest[1].text}`; usage: {PLOT_USAGE}", rest[1].column)
+    path = path_word(rest[0])
+    if os.path.splitext(path)[1].lower() != ".txt":
+        raise ShellError(f"`{path}`: a plot is written to a .txt file", rest[0].column)
+    target = may_write(app, app.ws.resolve(path), path, force=force, word=rest[0])
+    return w[:k], (path, target)
+
+
+def _written(app, dest, pic: "_Picture") -> None:
+    path, target = dest
+    n = atomic_write(target.path, pic.text, shown=path)
+    via = wrote(app, target)
+    rows = pic.text.count("\n")
+    app.printer.line(f"wrote the picture to `{path}` ({rows} lines, {R.bytes_text(n)}){via}")
 
 
 @command("plot", usage=PLOT_USAGE, group="view", complete=_complete_plot,
@@ -167,20 +224,23 @@ PLOT_USAGE = "plot NAME [NAME2]  or  plot refine"
 def plot(app, line: Line):
     from .. import plots  # drawn by its own module
 
-    w = line.words
+    w, dest = _destination(app, line)
     if len(w) < 2:
         raise ShellError(f"`plot` needs a parameter: {PLOT_USAGE}", line.end_column())
     if len(w) > 3:
         raise ShellError(f"unexpected `{w[3].text}`; usage: {PLOT_USAGE}", w[3].column)
+    pic = _Picture(app.printer) if dest is not None else app.printer
     params = app.ws.model.param_names
     if w[1].text == "refine" and "refine" not in params:
         if len(w) > 2:
             raise ShellError(f"unexpected `{w[2].text}`: `plot refine` takes nothing",
                              w[2].column)
-        return plot_refine(app)
+        plot_refine(app, pic)
+        return _written(app, dest, pic) if dest is not None else None
     predicted = {p.name for p in app.ws.predictions}
     if len(w) == 2 and w[1].text not in params and w[1].text in predicted:
-        return plot_predicted(app, w[1].text)
+        plot_predicted(app, w[1].text, pic)
+        return _written(app, dest, pic) if dest is not None else None
     for x in w[1:]:
         if x.text not in params:
             raise ShellError(f"no parameter `{x.text}`", x.column)
@@ -197,9 +257,17 @@ def plot(app, line: Line):
         got = app.ws.posterior()
     post = got.posterior
     notes(app, got.notes)
-    if app.ws.in_whatif:
+    beside = None
+    if app.ws.in_whatif and len(w) == 2:
+        now = app.ws.posterior_beside()
+        notes(app, [f"now: {n}" for n in now.notes])
+        m_now = now.posterior.marginal(w[1].text)
+        if not m_now.discrete:
+            k_now = crop(m_now.mass)
+            beside = (m_now.values[k_now], m_now.density()[k_now])
+    if app.ws.in_whatif and beside is None:
         app.printer.note("drawn for the what-if state")
-    p = app.printer
+    p = pic
     try:
         if len(w) == 2:
             m = post.marginal(w[1].text)
@@ -209,7 +277,7 @@ def plot(app, line: Line):
             k = crop(m.mass)
             text = plots.marginal(m.values[k], m.density()[k], name=m.name, width=p.width,
                                   height=p.room(20), discrete=m.discrete, interval=iv,
-                                  color=p.color)
+                                  color=p.color, beside=beside)
         else:
             a, b = w[1].text, w[2].text
             i, j = crop(mass.sum(axis=1)), crop(mass.sum(axis=0))
@@ -219,13 +287,15 @@ def plot(app, line: Line):
     except ValueError as exc:
         raise ShellError(f"cannot draw it: {exc}") from None
     p.block(text)
+    if dest is not None:
+        _written(app, dest, pic)
 
 
 #: Changes below this are drawn at it (a log axis has no room for 0).
 TINY_CHANGE = 1e-16
 
 
-def plot_refine(app) -> None:
+def plot_refine(app, p) -> None:
     """The convergence of the refinement steps of the current posterior."""
     from .. import plots
 
@@ -234,16 +304,16 @@ def plot_refine(app) -> None:
     if not steps:
         raise ShellError("no refinement steps to draw: `refine` or `refine until TOL` first")
     if ws.status().posterior == "out of date":
-        app.printer.note("these steps refined the posterior from before the last change")
+        p.note("these steps refined the posterior from before the last change")
     x = np.arange(1, len(steps) + 1, dtype=float)
     series = {"largest change": [max(s.largest, TINY_CHANGE) for s in steps]}
     ev = [s.changes.get("log evidence", s.changes.get("log mass")) for s in steps]
     if all(v is not None and np.isfinite(v) for v in ev):
         series["log evidence change"] = [max(v, TINY_CHANGE) for v in ev]
-    p = app.printer
     try:
-        text = plots.convergence(x, series, width=p.width, height=p.room(16, keep=4 + len(steps)),
-                                 color=p.color, xname="refinement step")
+        text = plots.convergence(x, series, width=p.width,
+                                 height=p.room(16, keep=4 + len(steps)), color=p.color,
+                                 xname="refinement step")
     except ValueError as exc:
         raise ShellError(f"cannot draw it: {exc}") from None
     p.block(text)
@@ -252,14 +322,13 @@ def plot_refine(app) -> None:
                        for i, s in enumerate(steps, 1)], align="rrrl")])
 
 
-def plot_predicted(app, name: str) -> None:
+def plot_predicted(app, name: str, p) -> None:
     """The predictive pmf or density of a new observation named by `predict`."""
     from .. import plots
 
     a = app.ws.mean(name)
     notes(app, a.notes)
     pv = a.detail.predictive
-    p = app.printer
     values, dens = np.asarray(pv.values, float), np.asarray(pv.density, float)
     iv = None
     if not pv.discrete:
