@@ -105,6 +105,9 @@ class Table:
     lead : int
         How many leading cells make up a row's label in the stacked form (2 for a
         row named by a parameter and a side, as ``shape now``).
+    compact : bool
+        Stack each row on one line, ``label: title value, title value, ...`` (prose,
+        wrapped at blanks by the printer), instead of a line per column.
     """
 
     header: tuple[str, ...]
@@ -112,11 +115,14 @@ class Table:
     align: str | None = None
     indent: int = 0
     lead: int = 1
+    compact: bool = False
 
     @classmethod
     def of(cls, header: Sequence[str], rows: Sequence[Sequence[str]], *,
-           align: str | None = None, indent: int = 0, lead: int = 1) -> "Table":
-        return cls(tuple(header), tuple(tuple(r) for r in rows), align, indent, lead)
+           align: str | None = None, indent: int = 0, lead: int = 1,
+           compact: bool = False) -> "Table":
+        return cls(tuple(header), tuple(tuple(r) for r in rows), align, indent, lead,
+                   compact)
 
     def wide(self) -> list[str]:
         cols = len(self.header)
@@ -141,6 +147,19 @@ class Table:
         titles = self.header[self.lead:]
         tw = max((cells(t) for t in titles), default=0)
         out = []
+        if self.compact:
+            for r in self.rows:
+                label = " ".join(c for c in r[:self.lead] if c)
+                parts: list[str] = []
+                for t, c in zip(titles, r[self.lead:]):
+                    if not c:
+                        continue
+                    if t.startswith("±") and parts:   # an error rides with its value
+                        parts[-1] += " " + c
+                    else:
+                        parts.append(f"{t} {c}" if t else c)
+                out.append(pad + (label + ": " if label else "") + ", ".join(parts))
+            return out
         for r in self.rows:
             label = " ".join(c for c in r[:self.lead] if c)
             if label:

@@ -163,7 +163,7 @@ def test_whatif_answers_now_and_what_if_side_by_side(model):
     assert model(f"check mean p = {POST.mean():.6f}") == "failed"
     model("summary")
     out = model.take()[0]
-    assert re.search(r"^p\s+now\s", out, re.M) and re.search(r"^p\s+what if\s", out, re.M)
+    assert re.search(r"^p\s+now[:\s]", out, re.M) and re.search(r"^p\s+what if[:\s]", out, re.M)
 
 
 def test_whatif_shows_in_the_prompt_and_the_toolbar(model):

@@ -246,8 +246,14 @@ def test_compute(model):
 def test_summary_matches_scipy(model):
     model("summary")
     out = model.take()[0]
-    row = next(line for line in out.splitlines() if line.startswith("p "))
-    mean, sd, q1, q2, q3 = (float(x) for x in row.split()[1:])
+    head, row = [line for line in out.splitlines() if line.startswith(("parameter", "p "))]
+    # our own layout: the mean with its numerical error, sd, median, and the interval
+    # written as one with its level
+    assert head.split() == ["parameter", "mean", "±", "error", "sd", "median", "95%",
+                            "credible", "interval"]
+    cells = row.split()
+    assert cells[2] == "±" and cells[-2] == "to"
+    mean, sd, q2, q1, q3 = (float(cells[i]) for i in (1, 4, 5, 6, 8))
     # scipy.stats.beta(11, 24): the posterior, to the 6 digits shown
     assert mean == shown(POST.mean())
     assert sd == shown(POST.std())
@@ -336,7 +342,7 @@ def test_question_after_a_change_says_out_of_date_when_costly(model, monkeypatch
     model("compute", "prior p ~ beta(1, 1)")
     monkeypatch.setattr(W, "CHEAP_SECONDS", -1.0)
     line = model.error("mean p")
-    assert line.startswith("error: the posterior is out of date (about ")
+    assert line.startswith("error: the model changed since the posterior was computed (about ")
     assert line.endswith("to compute): use `compute`")
 
 

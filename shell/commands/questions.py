@@ -321,8 +321,10 @@ def _complete_none(words, text):
 
 @command("summary", usage="summary", kind="question", group="question",
          complete=_complete_none,
-         help="""A table of every parameter's posterior mean, sd and 2.5%, 50% and 97.5%
-         quantiles, with the log evidence and the largest estimated error.""")
+         help="""A table of every parameter: its posterior mean with the mean's estimated
+         numerical error, its sd, its median and its 95% central credible interval (from
+         the 2.5% to the 97.5% quantile), then the log evidence and the largest estimated
+         error of any number in the table.""")
 def summary(app, line: Line):
     w = line.words
     if len(w) > 1:
@@ -334,13 +336,13 @@ def summary(app, line: Line):
     rows, errs, absent = [], [], []
     for r in s.rows:
         ests = (r.mean, r.sd, r.q025, r.q50, r.q975)
-        rows.append([r.name] + [_cell(e, s.unresolved) for e in ests])
+        rows.append([r.name] + summary_cells(r, s.unresolved))
         errs.extend(e.error for e in ests if e.error is not None)
         gone = [w for w, e in (("mean", r.mean), ("sd", r.sd)) if e.method == "absent"]
         if gone:
             absent.append(f"`{r.name}` has no {' and no '.join(gone)} (tails too heavy)")
     p = app.printer
-    p.lines([Table.of(["param", "mean", "sd", "2.5%", "50%", "97.5%"], rows)])
+    p.lines([Table.of(SUMMARY_HEAD, rows, align="lrlrrl", compact=True)])
     for text in absent:
         p.line("- " + text)
     ev = s.log_evidence
@@ -366,6 +368,20 @@ def _cell(e, unresolved: str = "") -> str:
     if e.method == "absent":
         return "-"
     return R.num(e.value, 2) if unresolved else R.to_error(e.value, e.error)
+
+
+#: The summary's columns: the interval is written as one, with its level.
+SUMMARY_HEAD = ["parameter", "mean", "± error", "sd", "median", "95% credible interval"]
+
+
+def summary_cells(r, unresolved: str = "") -> list[str]:
+    """One parameter's summary: mean, the mean's numerical error, sd, median and
+    the central 95% interval as ``LO to HI``."""
+    err = R.err(r.mean.error) if r.mean.method != "absent" else ""
+    # in the stacked form the error follows the mean: "mean 0.3143 ± 5e-5"
+    u = unresolved
+    return [_cell(r.mean, u), err, _cell(r.sd, u), _cell(r.q50, u),
+            f"{_cell(r.q025, u)} to {_cell(r.q975, u)}"]
 
 
 def _summary_shown(s) -> list[Shown]:
@@ -397,11 +413,10 @@ def _summary_side_by_side(app, s) -> Reply:
         for which, x in (("now", now.get(r.name)), ("what if", r)):
             if x is None:
                 continue
-            rows.append([r.name, which] + [_cell(e) for e in
-                                           (x.mean, x.sd, x.q025, x.q50, x.q975)])
+            rows.append([r.name, which] + summary_cells(x))
     p = app.printer
-    p.lines([Table.of(["param", "", "mean", "sd", "2.5%", "50%", "97.5%"], rows,
-                      align="llrrrrr", lead=2)])
+    p.lines([Table.of(SUMMARY_HEAD[:1] + [""] + SUMMARY_HEAD[1:], rows, align="llrlrrl",
+                      lead=2, compact=True)])
 
     def ev(x):
         return R.num(x.log_evidence.value) if x.log_evidence is not None else "not defined"
