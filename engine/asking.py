@@ -164,7 +164,7 @@ def moment(s: State, kind: str, text: str, *, budget_seconds: float) -> Outcome:
         value = pv.mean if kind == "mean" else pv.sd
         return _answer(got, kind, f"{kind} of a new {pr.name}",
                        Number(value, scale=pv.sd, predictive=pv))
-    if s.frame_rule is not None:
+    if framing.active(s) is not None:
         return _frame_moment(s, kind, text, e, budget_seconds)
     got = fresh(s, budget_seconds=budget_seconds)
     post = got.result.posterior

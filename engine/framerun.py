@@ -329,6 +329,69 @@ def _modes(target: _Counted) -> list[refine.LocalMode]:
     return modes
 
 
+@dataclass(frozen=True)
+class Probe:
+    """The frame at the best mode, measured before a rule is chosen.
+
+    Attributes
+    ----------
+    frame : Frame
+    check : FrameCheck
+    modes : int
+    fixed : dict of str to float
+        The discrete values the probe used (the first combination).
+    evaluations : int
+    seconds_per_evaluation : float
+        Measured on this machine, over a batch of points around the mode.
+    """
+
+    frame: Frame
+    check: FrameCheck
+    modes: int
+    fixed: dict[str, float]
+    evaluations: int
+    seconds_per_evaluation: float
+
+
+def probe(compiled: Compiled, choice: RuleChoice = RuleChoice("sparse")) -> Probe:
+    """The mode, the frame and its check, for the first combination of the discrete
+    values (what `compute` looks at to choose a rule, and `cost` to time one).
+
+    Raises
+    ------
+    ComputeError
+        As `compute`.
+    """
+    fixed = _combinations(compiled, choice)[0]
+    target = _Counted(compiled, fixed)
+    st = _start(target)
+    spent = target.count
+    return Probe(st.frame, st.check, st.modes, fixed, spent, _timed(target, st.frame))
+
+
+def seconds_per_evaluation(compiled: Compiled) -> float:
+    """The measured cost of one log-density evaluation in the unconstrained scales,
+    at points spread around the origin (no mode search)."""
+    disc = {p.name: p.values[0] for p in compiled.params if p.discrete}
+    target = _Counted(compiled, disc)
+    d = len(target.cont)
+    frame = make_frame(np.zeros(d), np.eye(d), names=tuple(p.name for p in target.cont))
+    return _timed(target, frame)
+
+
+def _timed(target: _Counted, frame: Frame, count: int = 4096) -> float:
+    """Seconds per log-density evaluation, from a batch of points around the mode
+    (the best of two runs)."""
+    z = np.random.default_rng(1).normal(size=(count, frame.dims))
+    U = frame.to_u(z)
+    best = math.inf
+    for _ in range(2):
+        t0 = time.perf_counter()
+        target(U)
+        best = min(best, time.perf_counter() - t0)
+    return best / count
+
+
 class _Cache:
     """Log-density values by node, so nested levels never evaluate a node twice."""
 
@@ -489,8 +552,9 @@ def _combined(compiled: Compiled, choice: RuleChoice, fits: tuple[FrameFit, ...]
         m_err = float(p @ E[:, i, 0]) + shift
         s_err = float(p @ E[:, i, 1]) + (shift * 2 if sd > 0 else 0.0)
         known = np.isfinite(E[:, i]).all()
-        means[n] = Estimate(float(mean[i]), m_err if known else None, "levels")
-        sds[n] = Estimate(sd, s_err if known else None, "levels")
+        # an error that could not be bounded is shown as such, never left out
+        means[n] = Estimate(float(mean[i]), m_err if known else math.inf, "levels")
+        sds[n] = Estimate(sd, s_err if known else math.inf, "levels")
     log_ev = None
     if compiled.proper:
         norm = prior_normaliser(compiled) if compiled.free_prior else 0.0

@@ -359,6 +359,40 @@ class CostStep:
 
 
 @dataclass(frozen=True)
+class RuleRow:
+    """One rule in the frame at one setting, as `cost` lists it.
+
+    Attributes
+    ----------
+    rule : str
+        The rule and its setting, as typed (``sparse level 4``).
+    points : int
+        Log-density evaluations (the mode search aside).
+    exact_count : bool
+        Whether `points` is exact (the rotated lattice's is estimated for a normal
+        posterior).
+    memory : int
+        Bytes.
+    seconds : float or None
+        Predicted from the density's measured cost (None: not timed).
+    accuracy : str
+    fits : bool
+        Whether it fits in memory.
+    chosen : bool
+        Whether it is the rule set.
+    """
+
+    rule: str
+    points: int
+    exact_count: bool
+    memory: int
+    seconds: float | None
+    accuracy: str
+    fits: bool
+    chosen: bool = False
+
+
+@dataclass(frozen=True)
 class CostReport:
     cost: plan.Cost
     grid: tuple[str, ...]      # one line per axis
@@ -367,6 +401,8 @@ class CostReport:
     budget_seconds: float
     ahead: tuple[CostStep, ...] = ()
     advice: str = ""
+    rules: tuple[RuleRow, ...] = ()    # the rules in the frame, for this model
+    choice: str = ""                   # what `compute` would use, when not the grid
 
 
 @dataclass(frozen=True)

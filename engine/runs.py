@@ -15,7 +15,7 @@ from typing import Callable
 
 import numpy as np
 
-from . import framing, plan
+from . import framerun, framing, plan
 from .data import DataSet
 from .edits import data_notes
 from .errors import ComputeError, GridError, QuadratError
@@ -24,6 +24,7 @@ from .model import Compiled, compile_model
 from .posterior import Posterior, compute as compute_posterior, zeros
 from .refine import (AxisSpec, auto_grid, axis_count, build_grid, refine as refine_posterior,
                      refined_grid, widen_specs, zoom_specs)
+from .sparse import SPARSE_MAX_DIMS
 from .results import Change, ComputeReport, CostReport, CostStep, Fresh, GridAuto, RefineReport
 from .state import Outcome, State
 
@@ -57,13 +58,30 @@ class Sizing:
 # ---------------------------------------------------------------------------
 # sizing and cost
 
+def declared_counts(s: State, compiled: Compiled) -> list[int] | None:
+    """Points of every axis, where the user gave them all (a `grid`, or `points N`
+    declared with the parameter; a discrete parameter's values); None otherwise."""
+    out = []
+    for p in compiled.params:
+        spec = s.spec(p.name)
+        if spec is not None:
+            out.append(axis_count(p, spec))
+        elif p.discrete:
+            out.append(len(p.values))
+        elif p.points:
+            out.append(int(p.points))
+        else:
+            return None
+    return out
+
+
 def check_count(s: State, compiled: Compiled) -> None:
-    """Refuse a grid of the user's axes with more points than can be counted,
-    before its axes are built (axes of millions of nodes take memory)."""
-    by = {x.name: x for x in s.specs}
-    if not all(p.name in by for p in compiled.params):
+    """Refuse a grid of the user's axes (or declared points) with more points than
+    can be counted, before its axes are built or `grid auto` is run."""
+    counts = declared_counts(s, compiled)
+    if counts is None:
         return
-    points = math.prod(axis_count(p, by[p.name]) for p in compiled.params)
+    points = math.prod(counts)
     if points >= 2**62:
         raise ComputeError(f"this grid has {plan.format_count(points)} points: more than "
                            "quadrat can count; use fewer points or fewer parameters")
@@ -109,8 +127,30 @@ def check_cost(compiled: Compiled, grid: Grid, *, budget_seconds: float,
     return c
 
 
+#: Declared points beyond this are costed from the counts alone (no `grid auto`).
+DECLARED_LIMIT = 10**12
+
+
 def cost(s: State, *, budget_seconds: float) -> CostReport:
     compiled = s.compiled()
+    counts = declared_counts(s, compiled)
+    spp = framerun.seconds_per_evaluation(compiled) if compiled.params else None
+    rules = framing.rule_rows(s, seconds_per_evaluation=spp)
+    choice = _choice_text(s)
+    if counts is not None and math.prod(counts) > DECLARED_LIMIT:
+        c = plan.estimate_counts(compiled, counts)
+        c = replace(c, seconds=c.points * (spp or c.seconds_per_point),
+                    seconds_per_point=spp or c.seconds_per_point)
+        lines = tuple(f"{p.name}: {n} points" for p, n in zip(compiled.params, counts))
+        d = sum(1 for p in compiled.params if not p.discrete)
+        return CostReport(c, lines, s.rule, False, budget_seconds, (),
+                          f"{plan.format_count(c.points)} points: a tensor grid grows as N^d, "
+                          f"and {d} continuous parameters are past it; "
+                          + ("`rule sparse` or `rule hermite` integrate them in the frame "
+                             "around the mode" if d <= SPARSE_MAX_DIMS else
+                             "`rule hermite 1` (the Laplace approximation) is the only rule in "
+                             "the frame of that size"),
+                          rules, choice)
     size = sizing(s, compiled)
     grid = size.grid
     c = plan.estimate(compiled, grid, precise=True)
@@ -124,7 +164,20 @@ def cost(s: State, *, budget_seconds: float) -> CostReport:
             ahead.append(CostStep(k, g2.size, mem, c.seconds_per_point * g2.size * share))
             g = g2
     return CostReport(c, tuple(a.describe() for a in grid.axes), s.rule, bool(size.auto),
-                      budget_seconds, tuple(ahead), advice(c, grid, budget_seconds))
+                      budget_seconds, tuple(ahead), advice(c, grid, budget_seconds), rules,
+                      choice)
+
+
+def _choice_text(s: State) -> str:
+    """What `compute` would use, when not the tensor grid."""
+    if s.frame_rule is not None:
+        return f"rule {s.frame_rule.describe()} (set)"
+    if s.choice is not None or framing.grid_by_default(s):
+        return ""
+    return (f"the rule `compute` picks from the posterior's shape for "
+            f"{framing.continuous(s)} continuous parameters: sparse near normal; where skew, "
+            f"tails or a boundary call for it, the tensor grid up to "
+            f"{framing.TROUBLE_GRID_DIMS} parameters and rotated past that")
 
 
 def advice(c: plan.Cost, grid: Grid, budget_seconds: float) -> str:
@@ -150,12 +203,16 @@ def compute(s: State, *, budget_seconds: float, progress: Progress = None,
             force: bool = False) -> Outcome:
     """The posterior on the state's grid or frame rule: an Outcome with a
     `ComputeReport`."""
-    if s.frame_rule is not None:
-        return framing.compute(s, budget_seconds=budget_seconds, progress=progress)
+    chosen = framing.choose(s)
+    if chosen.choice.in_frame:
+        return framing.compute(s, chosen, budget_seconds=budget_seconds, progress=progress)
     compiled = s.compiled()
     check_count(s, compiled)
-    return _compute_on(s, compiled, sizing(s, compiled), budget_seconds=budget_seconds,
-                       progress=progress, force=force)
+    out = _compute_on(s, compiled, sizing(s, compiled), budget_seconds=budget_seconds,
+                      progress=progress, force=force)
+    if chosen.why:
+        out = Outcome(out.state, replace(out.result, notes=(chosen.why,) + out.result.notes))
+    return out
 
 
 def _compute_on(s: State, compiled: Compiled, size: Sizing, *, budget_seconds: float,
@@ -190,8 +247,9 @@ def fresh(s: State, *, budget_seconds: float) -> Outcome:
     that is cheap; refused with the figure when it is not."""
     if s.current:
         return Outcome(s, Fresh(s.posterior))
-    if s.frame_rule is not None:
-        return framing.fresh(s, budget_seconds=budget_seconds)
+    chosen = framing.frame_path(s)
+    if chosen is not None:
+        return framing.fresh(s, chosen, budget_seconds=budget_seconds)
     what = "no posterior yet" if s.posterior is None else stale_reason(s)
     compiled = s.compiled()
     check_count(s, compiled)
@@ -320,11 +378,16 @@ def refine(s: State, axis: str | None = None, until: float | None = None, *,
            budget_seconds: float, progress: Progress = None) -> Outcome:
     """Refine step by step (computing first if needed): a `RefineReport`; the
     state takes the final posterior and its grid."""
-    framing.refuse(s, "`refine`")
     if axis is not None:
         s.model.param(axis)
     if until is not None and not (until > 0 and math.isfinite(until)):
         raise GridError(f"`until` needs a positive tolerance; got {until:g}")
+    chosen = framing.frame_path(s)
+    if chosen is not None:
+        if axis is not None:
+            raise GridError(f"a rule in the frame is refined as a whole, not along `{axis}`: "
+                            "use `refine` or `refine until TOL`")
+        return framing.refine(s, chosen, until, budget_seconds=budget_seconds)
     first = computed(s, budget_seconds=budget_seconds, progress=progress)
     s = first.state
     res = refine_posterior(s.compiled(), first.result.posterior, axis=axis, until=until,
@@ -340,7 +403,9 @@ def zoom(s: State, mass: float = 1 - 1e-9, *, budget_seconds: float,
          progress: Progress = None, force: bool = False) -> Outcome:
     """Shrink every axis to the region holding `mass` and compute again with the
     same number of points: a `ComputeReport`."""
-    framing.refuse(s, "`zoom`")
+    if framing.active(s) is not None:
+        raise GridError("`zoom` sets the bounds of a tensor grid; a rule in the frame places "
+                        "its nodes around the posterior by itself: `rule grid` zooms")
     first = computed(s, budget_seconds=budget_seconds, progress=progress)
     s, notes = first.state, first.result.notes
     specs = zoom_specs(first.result.posterior, mass)

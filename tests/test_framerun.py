@@ -121,8 +121,8 @@ def test_questions_not_yet_on_a_frame_rule_say_which_rule_answers():
         with pytest.raises(QuadratError, match=r"not answered on rule `hermite` yet .*"
                                                r"`rule grid` answers it"):
             ask()
-    with pytest.raises(QuadratError, match=r"`refine` is not answered on rule `hermite`"):
-        ws.refine()
+    with pytest.raises(QuadratError, match=r"`zoom` sets the bounds of a tensor grid"):
+        ws.zoom()
     # the posterior is still there and current
     assert ws.status().posterior == "current"
 

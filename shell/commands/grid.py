@@ -167,6 +167,18 @@ def cost(app, line: Line):
                             R.duration(a.seconds)] for a in rep.ahead], indent=2)])
     if rep.auto:
         p.note("axes not set come from `grid auto`")
+    if rep.rules:
+        p.line("rules in the frame around the mode (the mode search adds a few thousand "
+               "evaluations; hermite K runs K and K + 2, sparse level L runs L, L - 1 and a "
+               "first pass for its frame):")
+        p.lines(R.table(["rule", "points", "memory", "time", "accuracy"],
+                        [[("* " if r.chosen else "") + r.rule,
+                          ("" if r.exact_count else "~") + format_count(r.points),
+                          R.bytes_text(r.memory) if r.fits else R.bytes_text(r.memory) + " (too much)",
+                          "-" if r.seconds is None else R.duration(r.seconds), r.accuracy]
+                         for r in rep.rules], align="lrrrl", indent=2))
+    if rep.choice:
+        p.line(f"compute uses {rep.choice}")
     if c.points >= COUNT_LIMIT:
         p.warning(f"{format_count(c.points)} points are more than `compute` will take, even "
                   "forced: use fewer points or fewer parameters")
