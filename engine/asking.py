@@ -9,11 +9,12 @@ its posterior predictive distribution. Nothing is committed here.
 from __future__ import annotations
 
 import math
+from dataclasses import replace
 
 import numpy as np
 import sympy as sp
 
-from . import framing, plan, questions, runs
+from . import framemarg, framing, plan, questions, runs
 from .edits import future_rows
 from .errors import ComputeError
 from .expr import parse
@@ -80,7 +81,8 @@ def _answer(got: Outcome, kind: str, label: str, detail, notes=()) -> Outcome:
 # the summaries
 
 def summary(s: State, *, budget_seconds: float) -> Outcome:
-    framing.refuse(s, "`summary`")
+    if framing.active(s) is not None:
+        return _node_summary(s, budget_seconds)
     got = fresh(s, budget_seconds=budget_seconds)
     post = got.result.posterior
     rows = tuple(SummaryRow(name, post.param_mean(name), post.param_sd(name),
@@ -102,10 +104,13 @@ def interval(s: State, name: str, level: float = 0.95, kind: str = "central", *,
         return _answer(got, "interval", f"{level:g} central interval of new {name}",
                        Range(pv.quantile(a), pv.quantile(1 - a), None, None, level, kind,
                              predictive=pv))
-    framing.refuse(s, "an interval")
-    got = fresh(s, budget_seconds=budget_seconds)
     s.model.param(name)
-    iv: Interval = got.result.posterior.interval(name, level, kind)
+    if framing.active(s) is not None:
+        got = _node_marginals(s, budget_seconds)
+        iv: Interval = got.result.posterior.marginals[name].interval(level, kind)
+    else:
+        got = fresh(s, budget_seconds=budget_seconds)
+        iv = got.result.posterior.interval(name, level, kind)
     notes = ()
     if len(iv.pieces) > 1:
         notes = (f"the {kind} region has {len(iv.pieces)} pieces: " + ", ".join(
@@ -149,7 +154,11 @@ def prob(s: State, text: str, *, budget_seconds: float) -> Outcome:
         got, pv = _predictive(s, pr, budget_seconds)
         return _answer(got, "prob", f"P({text.strip()}) for a new {pr.name}",
                        Number(_predictive_prob(pv, cond, pr.name), predictive=pv))
-    framing.refuse(s, "`prob`")
+    if framing.active(s) is not None:
+        parts = _one_parameter(s, cond)
+        got = _node_marginals(s, budget_seconds)
+        est = framemarg.probability(got.result.posterior.marginals[parts[0].name], parts)
+        return _answer(got, "prob", f"P({text.strip()})", Number(est.value, est.error))
     got = fresh(s, budget_seconds=budget_seconds)
     est = questions.probability(got.result.posterior, cond)
     return _answer(got, "prob", f"P({text.strip()})", Number(est.value, est.error))
@@ -190,6 +199,56 @@ def _no_moment(post, e: sp.Basic, kind: str) -> NoMoment:
     return NoMoment(kind, reason, post.quantile(e.name, 0.5), iv.lo, iv.hi)
 
 
+def _node_marginals(s: State, budget_seconds: float) -> Outcome:
+    """The fresh node posterior with its 1-D marginals (computed once, kept on it)."""
+    got = fresh(s, budget_seconds=budget_seconds)
+    post = got.result.posterior
+    if not framing.is_node(post) or post.marginals is not None:
+        return got
+    new = replace(post, marginals=framemarg.marginals(post))
+    return Outcome(got.state.with_posterior(new), replace(got.result, posterior=new))
+
+
+def posterior(s: State, *, budget_seconds: float) -> Outcome:
+    """The fresh posterior (a `Fresh`), with its 1-D marginals on a rule in the frame."""
+    return _node_marginals(s, budget_seconds)
+
+
+def _node_summary(s: State, budget_seconds: float) -> Outcome:
+    got = _node_marginals(s, budget_seconds)
+    post = got.result.posterior
+    rows = tuple(SummaryRow(n, post.param_mean(n), post.param_sd(n),
+                            *(post.marginals[n].quantile(q) for q in (0.025, 0.5, 0.975)))
+                 for n in post.names)
+    return Outcome(got.state, Summary(rows, post.log_evidence, post.points, got.result.notes))
+
+
+_SIDES = {sp.StrictLessThan: "<", sp.LessThan: "<=", sp.StrictGreaterThan: ">",
+          sp.GreaterThan: ">=", sp.Equality: "==", sp.Unequality: "!="}
+
+
+def _one_parameter(s: State, cond) -> list[framemarg.Comparison]:
+    """A condition on a rule in the frame: comparisons of one parameter with numbers
+    (`b1 > 0`, `0.5 < s and s < 2`); anything else is refused with the rule that can."""
+    parts = list(cond.args) if isinstance(cond, sp.And) else [cond]
+    out = []
+    for c in parts:
+        op = _SIDES.get(type(c))
+        if op is None:
+            break
+        if isinstance(c.lhs, sp.Symbol) and c.rhs.is_number:
+            out.append(framemarg.Comparison(c.lhs.name, op, float(c.rhs)))
+        elif isinstance(c.rhs, sp.Symbol) and c.lhs.is_number:
+            out.append(framemarg.Comparison(c.rhs.name, framemarg._FLIP[op], float(c.lhs)))
+        else:
+            break
+    names = {c.name for c in out}
+    if len(out) != len(parts) or len(names) != 1 or not names <= set(s.model.param_names):
+        framing.refuse(s, "`prob` of a condition other than comparisons of one parameter with "
+                       "numbers")
+    return out
+
+
 def _frame_moment(s: State, kind: str, text: str, e: sp.Basic, budget_seconds: float
                   ) -> Outcome:
     """`mean` or `sd` of a parameter on a rule in the frame."""
@@ -210,7 +269,13 @@ def quantile(s: State, text: str, q: float, *, budget_seconds: float) -> Outcome
         got, pv = _predictive(s, pr, budget_seconds)
         return _answer(got, "quantile", f"{q:g} quantile of a new {pr.name}",
                        Number(pv.quantile(q), predictive=pv))
-    framing.refuse(s, "a quantile")
+    if framing.active(s) is not None:
+        if not (isinstance(e, sp.Symbol) and e.name in s.model.param_names):
+            framing.refuse(s, "a quantile of an expression")
+        got = _node_marginals(s, budget_seconds)
+        est = got.result.posterior.marginals[e.name].quantile(q)
+        return _answer(got, "quantile", f"{q:g} quantile of {text.strip()}",
+                       Number(est.value, est.error))
     got = fresh(s, budget_seconds=budget_seconds)
     est = questions.quantile(got.result.posterior, e, q)
     return _answer(got, "quantile", f"{q:g} quantile of {text.strip()}",

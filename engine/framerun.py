@@ -215,6 +215,7 @@ class NodePosterior:
     seconds: float = 0.0
     met: bool = False
     problems: tuple[str, ...] = ()
+    marginals: dict | None = field(default=None, repr=False)   # name -> NodeMarginal
 
     @property
     def evaluated(self) -> int:
@@ -225,6 +226,12 @@ class NodePosterior:
 
     def param_sd(self, name: str) -> Estimate:
         return self.sds[self._name(name)]
+
+    def marginal(self, name: str):
+        """The `Marginal` of `name` on its line (after `framemarg.marginals`)."""
+        if self.marginals is None or name not in self.marginals:
+            raise ComputeError(f"the marginal of `{name}` has not been computed on this rule")
+        return self.marginals[self._name(name)].fine
 
     def _name(self, name: str) -> str:
         if name not in self.means:

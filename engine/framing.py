@@ -50,7 +50,9 @@ TROUBLE_GRID_DIMS = 5
 #: Steps the rotated rule may take when chosen by `compute`, finest first.
 ROTATED_STEPS = (0.5, 0.75, 1.0)
 #: What a posterior on a rule in the frame answers.
-ANSWERED = ("evidence", "mean and sd of a parameter", "compare and keep")
+ANSWERED = ("evidence", "mean, sd, quantiles and intervals of a parameter",
+            "prob of comparisons of one parameter with numbers", "summary", "plot of a "
+            "parameter", "compare and keep")
 #: `cost` lists settings of at most this many points.
 ROW_LIMIT = 10_000_000
 #: Most steps `refine until` takes on a frame rule.

@@ -234,7 +234,7 @@ class Workspace:
 
     def posterior(self) -> Fresh:
         """The current posterior; computed first when out of date and cheap."""
-        return self._commit(runs.fresh(self.state, budget_seconds=self.budget_seconds))
+        return self._commit(asking.posterior(self.state, budget_seconds=self.budget_seconds))
 
     def posterior_beside(self) -> Fresh | None:
         """Inside a what-if layer: the posterior as things are (computed first when out

@@ -246,9 +246,6 @@ def plot(app, line: Line):
             raise ShellError(f"no parameter `{x.text}`", x.column)
     if len(w) == 3 and w[1].text == w[2].text:
         raise ShellError("a joint plot needs two different parameters", w[2].column)
-    if app.ws.frame_rule is not None:
-        raise ShellError(f"`plot` of a parameter is not drawn on rule `{app.ws.frame_rule.name}` "
-                         "yet: `rule grid` draws it")
     if len(w) == 3:
         # refused before anything is computed when the joint would not fit in memory
         got = app.ws.joint(w[1].text, w[2].text)
