@@ -16,6 +16,7 @@ from typing import Mapping
 
 from .errors import QuadratError
 from .files import atomic_write
+from .framing import is_node, points_of
 from .posterior import Estimate, Posterior
 
 FORMATS = (".csv", ".json")
@@ -71,7 +72,7 @@ def marginals_csv(post: Posterior) -> tuple[str, int]:
     """
     rows = []
     for name in post.names:
-        m = post.marginals[name]
+        m = post.marginal(name)
         dens = m.density()
         for v, d, w in zip(m.values, dens, m.mass):
             rows.append([name, repr(float(v)), repr(float(d)), repr(float(w))])
@@ -102,7 +103,7 @@ def to_json(post: Posterior, summary, *, meta: Mapping[str, object] | None = Non
     marginal as one JSON document, every number to full double precision."""
     params = {}
     for r in summary.rows:
-        m = post.marginals[r.name]
+        m = post.marginal(r.name)
         params[r.name] = {
             "discrete": bool(m.discrete),
             "mean": _est(r.mean), "sd": _est(r.sd),
@@ -113,8 +114,9 @@ def to_json(post: Posterior, summary, *, meta: Mapping[str, object] | None = Non
         }
     doc = {
         **(dict(meta) if meta else {}),
-        "points": int(post.grid.size),
-        "grid": [a.describe() for a in post.grid.axes],
+        "points": int(points_of(post)),
+        "grid": ([f"rule {post.label}"] if is_node(post) else
+                 [a.describe() for a in post.grid.axes]),
         "log_evidence": _est(summary.log_evidence),
         "parameters": params,
     }

@@ -13,6 +13,7 @@ Data are invented (seeded) test inputs.
 
 from __future__ import annotations
 
+import json
 import math
 import re
 
@@ -99,6 +100,10 @@ def test_summary_plot_save_and_replay_on_a_frame_rule(tmp_path):
     assert abs(float(row.group(5)) - st.norm(m[1], sd[1]).ppf(0.975)) <= 1e-5 * abs(m[1])
     out = sh("plot b1")
     assert "b1" in out and "interval" in out
+    sh("export m.json")
+    doc = json.loads((tmp_path / "m.json").read_text())
+    assert doc["grid"][0].startswith("rule hermite K = 5 against K = 3")
+    assert abs(doc["parameters"]["b1"]["mean"]["value"] - m[1]) <= 1e-9 * sd[1]
     sh("interval b2 0.95", "prob b1 < -0.9", "save s.qd")
     text = (tmp_path / "s.qd").read_text()
     assert "\ncheck interval b2 0.95 = " in text and "\ncheck prob b1 < -0.9 = " in text
