@@ -139,6 +139,8 @@ class FrameFit:
         Separated local modes found (the frame is at the best one).
     health : str
         What was wrong with the curvature at the mode (empty when it was fine).
+    mode_frame : Frame
+        The frame at the mode (before any re-centring).
     reduction : RuleReduction
     label : str
         The rule and its final setting, e.g. ``sparse level 5 against 4``.
@@ -159,6 +161,7 @@ class FrameFit:
     check: FrameCheck
     modes: int
     health: str
+    mode_frame: Frame
     reduction: RuleReduction
     label: str
     setting: float
@@ -242,9 +245,10 @@ class NodePosterior:
 # ---------------------------------------------------------------------------
 # the run
 
-def compute(compiled: Compiled, choice: RuleChoice, *, targets: Targets = Targets()
-            ) -> NodePosterior:
-    """The posterior of `compiled` on the frame rule `choice`.
+def compute(compiled: Compiled, choice: RuleChoice, *, targets: Targets = Targets(),
+            probe: "Probe | tuple[Probe, ...] | None" = None) -> NodePosterior:
+    """The posterior of `compiled` on the frame rule `choice` (reusing the mode
+    search of `probe`, when given, for the combination it was made for).
 
     Raises
     ------
@@ -259,7 +263,9 @@ def compute(compiled: Compiled, choice: RuleChoice, *, targets: Targets = Target
         share = Targets(targets.evidence_rel, targets.sd_share,
                         max((targets.budget - sum(f.evaluations + f.mode_evaluations
                                                   for f in fits)) // (len(combos) - k), 1))
-        fits.append(_fit(compiled, fixed, choice, share))
+        probes = (probe,) if isinstance(probe, Probe) else probe or ()
+        known = next((pr for pr in probes if pr.fixed == fixed), None)
+        fits.append(_fit(compiled, fixed, choice, share, known))
     return _combined(compiled, choice, tuple(fits), time.perf_counter() - t0)
 
 
@@ -399,6 +405,12 @@ def _timed(target: _Counted, frame: Frame, count: int = 4096) -> float:
     return best / count
 
 
+def probes_of(post: NodePosterior) -> tuple[Probe, ...]:
+    """The mode searches of `post`'s frames, for a finer rule to reuse (counted as
+    no new evaluations)."""
+    return tuple(Probe(f.mode_frame, f.check, f.modes, f.fixed, 0, 0.0) for f in post.fits)
+
+
 class _Cache:
     """Log-density values by node, so nested levels never evaluate a node twice."""
 
@@ -428,16 +440,20 @@ class _Pass:
     stopped: str = ""          # why a raised rule stopped short of its targets
 
 
-def _fit(compiled: Compiled, fixed: dict[str, float], choice: RuleChoice, targets: Targets
-         ) -> FrameFit:
+def _fit(compiled: Compiled, fixed: dict[str, float], choice: RuleChoice, targets: Targets,
+         probe: "Probe | None" = None) -> FrameFit:
     target = _Counted(compiled, fixed)
-    st = _start(target)
-    spent = target.count
+    if probe is not None:
+        st, spent = _Start(probe.frame, probe.check, probe.modes), probe.evaluations
+    else:
+        st = _start(target)
+        spent = target.count
     budget = Targets(targets.evidence_rel, targets.sd_share, max(targets.budget - spent, 1))
     run = {"hermite": _hermite, "sparse": _sparse, "rotated": _rotated}[choice.name]
     ps = run(target, st.frame, choice.setting, budget)
-    return FrameFit(fixed, ps.frame, st.check, st.modes, st.frame.health.message, ps.reduction, ps.label, ps.setting,
-                    ps.evaluations, spent, _met(ps.reduction, targets),
+    return FrameFit(fixed, ps.frame, st.check, st.modes, st.frame.health.message, st.frame,
+                    ps.reduction,
+                    ps.label, ps.setting, ps.evaluations, spent, _met(ps.reduction, targets),
                     "" if _met(ps.reduction, targets) else ps.stopped)
 
 

@@ -20,7 +20,7 @@ from __future__ import annotations
 
 import math
 import time
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 from . import framerun
 from .errors import ComputeError, GridError, QuadratError
@@ -69,6 +69,7 @@ class Chosen:
     choice: RuleChoice
     why: str = ""
     warnings: tuple[str, ...] = ()
+    probe: Probe | None = None        # the mode search already done, for the rule to reuse
 
 
 def continuous(s: State) -> int:
@@ -102,7 +103,7 @@ def choose(s: State) -> Chosen:
     except QuadratError as exc:
         return Chosen(RuleChoice("grid"), f"rule: tensor grid ({d} continuous parameters, but "
                       f"no frame could be built around a mode: {exc})")
-    return _by_shape(pr, d)
+    return replace(_by_shape(pr, d), probe=pr)
 
 
 def _by_shape(pr: Probe, d: int) -> Chosen:
@@ -165,7 +166,7 @@ def _budget(choice: RuleChoice) -> Targets:
 def compute(s: State, chosen: Chosen, *, budget_seconds: float, progress=None) -> Outcome:
     """The posterior on the frame rule `chosen`: an Outcome with a `ComputeReport`."""
     choice = chosen.choice
-    post = compute_frame(s.compiled(), choice, targets=_budget(choice))
+    post = compute_frame(s.compiled(), choice, targets=_budget(choice), probe=chosen.probe)
     return Outcome(s.with_posterior(post, steps=()), _report(post, chosen))
 
 
@@ -260,7 +261,8 @@ def refine(s: State, chosen: Chosen, until: float | None, *, budget_seconds: flo
                        f"{format_duration(budget_seconds)}")
             break
         try:
-            new = compute_frame(post.compiled, nxt, targets=_budget(nxt))
+            new = compute_frame(post.compiled, nxt, targets=_budget(nxt),
+                                probe=framerun.probes_of(post))
         except GridError as exc:      # a node set past the largest a rule may build
             message = f"stopped: {exc}"
             break
