@@ -124,6 +124,9 @@ def data_lines(ws) -> list[str]:
 
 def grid_lines(ws) -> list[str]:
     out = [f"rule {ws.rule_name}"]
+    if ws.frame_rule is not None:
+        out.append("  (in the frame around the posterior's mode: the axes below are used by "
+                   "`rule grid`)")
     for n in ws.model.param_names:
         spec = ws.spec(n)
         if spec is None:
