@@ -144,8 +144,7 @@ def cost(s: State, *, budget_seconds: float) -> CostReport:
         lines = tuple(f"{p.name}: {n} points" for p, n in zip(compiled.params, counts))
         d = sum(1 for p in compiled.params if not p.discrete)
         return CostReport(c, lines, s.rule, False, budget_seconds, (),
-                          f"{plan.format_count(c.points)} points: a tensor grid grows as N^d, "
-                          f"and {d} continuous parameters are past it; "
+                          _advice_text(c, d, budget_seconds) + "; "
                           + ("`rule sparse` or `rule hermite` integrate them in the frame "
                              "around the mode" if d <= SPARSE_MAX_DIMS else
                              "`rule hermite 1` (the Laplace approximation) is the only rule in "
@@ -184,7 +183,10 @@ def advice(c: plan.Cost, grid: Grid, budget_seconds: float) -> str:
     """Which way to go when a tensor grid is too big for the budget."""
     if c.fits and c.seconds <= budget_seconds:
         return ""
-    d = sum(1 for a in grid.axes if not a.discrete)
+    return _advice_text(c, sum(1 for a in grid.axes if not a.discrete), budget_seconds)
+
+
+def _advice_text(c: plan.Cost, d: int, budget_seconds: float) -> str:
     per = max(2, int((budget_seconds / max(c.seconds_per_point, 1e-12)) ** (1 / max(d, 1))))
     text = (f"{plan.format_count(c.points)} points is beyond the budget: a tensor grid "
             f"grows as N^d, and within {plan.format_duration(budget_seconds)} it allows about "
