@@ -121,9 +121,14 @@ def interval(s: State, name: str, level: float = 0.95, kind: str = "central", *,
 
 
 def mode(s: State, *, budget_seconds: float) -> Outcome:
-    framing.refuse(s, "`mode`")
     got = fresh(s, budget_seconds=budget_seconds)
     post = got.result.posterior
+    if framing.is_node(post):
+        jm = post.joint_mode()
+        return _answer(got, "mode", "joint mode " + ", ".join(jm.values),
+                       Point(jm.values, jm.converged, jm.message,
+                             tuple(post.sds[n].value for n in jm.values)),
+                       () if jm.converged else (jm.message,))
     m = questions.mode(post)
     spreads = tuple(post.marginals[n].sd for n in m.values if n in post.marginals)
     return _answer(got, "mode", "joint mode " + ", ".join(m.values),

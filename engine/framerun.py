@@ -27,6 +27,7 @@ import warnings
 from dataclasses import dataclass, field
 
 import numpy as np
+from scipy import optimize
 
 from . import refine
 from .errors import ComputeError, GridError
@@ -172,6 +173,15 @@ class FrameFit:
 
 
 @dataclass(frozen=True)
+class JointMode:
+    """The joint mode on a rule in the frame."""
+
+    values: dict[str, float]
+    converged: bool
+    message: str = ""
+
+
+@dataclass(frozen=True)
 class NodePosterior:
     """The posterior on a rule in the frame: evidence and moments with errors.
 
@@ -235,6 +245,29 @@ class NodePosterior:
         if self.marginals is None or name not in self.marginals:
             raise ComputeError(f"the marginal of `{name}` has not been computed on this rule")
         return self.marginals[self._name(name)].fine
+
+    def joint_mode(self) -> "JointMode":
+        """The joint mode in the parameters' own units: from the highest frame's mode
+        (found in the unconstrained scales, where the Jacobians shift it), climbed on
+        the density without them."""
+        best = max(self.fits, key=lambda f: f.check.log_centre - f.mode_frame.log_det)
+        target = refine._Target(self.compiled, best.fixed)
+        u0 = best.mode_frame.mode
+
+        def minus(u):
+            v = target(u[None, :])[0] - sum(
+                float(sc.logjac(np.array([u[k]]), p.lo, p.hi)[0])
+                for k, (p, sc) in enumerate(zip(target.cont, target.scales)))
+            return -v if np.isfinite(v) else 1e300
+
+        with np.errstate(all="ignore"), warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            r = optimize.minimize(minus, u0, method="BFGS", options={"gtol": 1e-9})
+        u = r.x if r.fun <= minus(u0) and np.all(np.isfinite(r.x)) else u0
+        theta = target.theta(u[None, :])
+        values = {p.name: float(t[0]) for p, t in zip(self.compiled.params, theta)}
+        return JointMode(values, bool(r.success), "" if r.success else
+                         f"the climb to the mode in the parameters' units stopped: {r.message}")
 
     def _name(self, name: str) -> str:
         if name not in self.means:

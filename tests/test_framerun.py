@@ -79,6 +79,10 @@ def test_exactly_normal_posterior_to_1e10(rule, setting):
         assert abs(mean.value - m[j]) <= 1e-10 * sd[j], j
         assert abs(s.value - sd[j]) <= 1e-10 * sd[j], j
     assert ws.status().posterior == "current"
+    # the joint mode of a normal posterior is its mean
+    mode = ws.mode().detail
+    for j in range(X.shape[1]):
+        assert abs(mode.values[f"b{j}"] - m[j]) <= 1e-6 * sd[j], j
 
 
 def test_discrete_parameter_summed_outside_one_frame_per_value():
@@ -117,7 +121,7 @@ def test_questions_not_yet_on_a_frame_rule_say_which_rule_answers():
     ws.rule("hermite", 3)
     ws.compute()
     for ask in (lambda: ws.prob("b1 * b2 > 0"), lambda: ws.quantile("b1 + b2", 0.5),
-                lambda: ws.mean("b1 * b2"), lambda: ws.mode()):
+                lambda: ws.mean("b1 * b2"), lambda: ws.joint("b1", "b2")):
         with pytest.raises(QuadratError, match=r"not answered on rule `hermite` yet .*"
                                                r"`rule grid` answers it"):
             ask()
