@@ -95,9 +95,9 @@ def test_summary_plot_save_and_replay_on_a_frame_rule(tmp_path):
         sh(f"param b{j} real", f"prior b{j} ~ normal(0, 3.0)")
     sh("likelihood y ~ normal(b0 + b1 * x1 + b2 * x2, 0.7)", "rule hermite 3")
     out = sh("summary")
-    row = re.search(r"^b1\s+(\S+)\s+(\S+)\s+(\S+)\s+(\S+)\s+(\S+)", out, re.M)
+    row = re.search(r"^b1\s.*\s(\S+) to (\S+)$", out, re.M)
     # the 97.5% quantile of b1: scipy.stats.norm (conjugacy, module docstring)
-    assert abs(float(row.group(5)) - st.norm(m[1], sd[1]).ppf(0.975)) <= 1e-5 * abs(m[1])
+    assert abs(float(row.group(2)) - st.norm(m[1], sd[1]).ppf(0.975)) <= 1e-5 * abs(m[1])
     out = sh("plot b1")
     assert "b1" in out and "interval" in out
     sh("export m.json")
