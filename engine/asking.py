@@ -14,11 +14,11 @@ from dataclasses import replace
 import numpy as np
 import sympy as sp
 
-from . import framemarg, framing, plan, questions, runs
+from . import derived, framemarg, framing, plan, questions, runs
 from .edits import future_rows
 from .errors import ComputeError
 from .expr import parse
-from .posterior import Interval
+from .posterior import Estimate, Interval
 from .predict import Predictive, predictive, sample_size
 from .refine import axis_count
 from .results import (Answer, Joint, Needed, NoMoment, Number, Point, Predicted, Range,
@@ -88,9 +88,33 @@ def summary(s: State, *, budget_seconds: float) -> Outcome:
     rows = tuple(SummaryRow(name, post.param_mean(name), post.param_sd(name),
                             post.quantile(name, 0.025), post.quantile(name, 0.5),
                             post.quantile(name, 0.975)) for name in post.names)
-    return Outcome(got.state, Summary(rows, post.log_evidence, post.grid.size,
-                                      got.result.notes,
+    notes = list(got.result.notes)
+    for lt in got.state.model.lets:
+        rows += (_let_row(post, lt.name, notes),)
+    return Outcome(got.state, Summary(rows, post.log_evidence, post.grid.size, tuple(notes),
                                       unresolved=unresolved(post)))
+
+
+def _let_row(post, name: str, notes: list[str]) -> SummaryRow:
+    """A let's summary row; its mean and sd are NaN (with a note) where they do not
+    exist or cannot be given, its quantiles likewise."""
+    e = sp.Symbol(name, real=True)
+    try:
+        mo = questions.moments(post, e, notes=notes, text=name)
+        mean, sd = mo.mean, mo.sd
+    except ComputeError as exc:
+        notes.append(f"let `{name}`: {exc}")
+        mean = sd = Estimate(math.nan)
+    qs = []
+    for q in (0.025, 0.5, 0.975):
+        try:
+            qs.append(questions.quantile(post, e, q, notes=notes if q == 0.025 else None,
+                                         text=name))
+        except ComputeError as exc:
+            if not qs or not math.isnan(qs[-1].value):
+                notes.append(f"let `{name}`: {exc}")
+            qs.append(Estimate(math.nan))
+    return SummaryRow(name, mean, sd, *qs, let=True)
 
 
 def interval(s: State, name: str, level: float = 0.95, kind: str = "central", *,
@@ -104,7 +128,9 @@ def interval(s: State, name: str, level: float = 0.95, kind: str = "central", *,
         return _answer(got, "interval", f"{level:g} central interval of new {name}",
                        Range(pv.quantile(a), pv.quantile(1 - a), None, None, level, kind,
                              predictive=pv))
-    s.model.param(name)
+    if name not in s.model.param_names:
+        framing.refuse(s, "an interval of a let or an expression")
+        return _derived_interval(s, name, level, kind, budget_seconds=budget_seconds)
     if framing.active(s) is not None:
         got = _node_marginals(s, budget_seconds)
         iv: Interval = got.result.posterior.marginals[name].interval(level, kind)
@@ -118,6 +144,32 @@ def interval(s: State, name: str, level: float = 0.95, kind: str = "central", *,
     return _answer(got, "interval", f"{level:g} {kind} interval of {name}",
                    Range(iv.lo.value, iv.hi.value, iv.lo.error, iv.hi.error, level, kind,
                          tuple(iv.pieces)), notes)
+
+
+def _derived_interval(s: State, text: str, level: float, kind: str, *,
+                      budget_seconds: float) -> Outcome:
+    """The interval of a let or an expression of the parameters."""
+    e = _expr(s, text)
+    _predicted_itself(s, e)
+    if kind != "central":
+        raise ComputeError(f"an HPD interval of a derived quantity such as `{text.strip()}` is "
+                           "not available yet; ask for the central one")
+    got = fresh(s, budget_seconds=budget_seconds)
+    notes: list[str] = []
+    lo, hi = derived.central(got.result.posterior, e, level, notes=notes)
+    return _answer(got, "interval", f"{level:g} {kind} interval of {text.strip()}",
+                   Range(lo.value, hi.value, lo.error, hi.error, level, kind,
+                         ((lo.value, hi.value),)), tuple(notes))
+
+
+def density(s: State, text: str, *, budget_seconds: float) -> Outcome:
+    """The posterior density of a let or an expression, for a plot (a `Curve`)."""
+    e = _expr(s, text)
+    _predicted_itself(s, e)
+    got = fresh(s, budget_seconds=budget_seconds)
+    notes: list[str] = []
+    c = derived.curve(got.result.posterior, e, notes=notes)
+    return _answer(got, "density", f"density of {text.strip()}", c, tuple(notes))
 
 
 def mode(s: State, *, budget_seconds: float) -> Outcome:
@@ -165,8 +217,10 @@ def prob(s: State, text: str, *, budget_seconds: float) -> Outcome:
         est = framemarg.probability(got.result.posterior.marginals[parts[0].name], parts)
         return _answer(got, "prob", f"P({text.strip()})", Number(est.value, est.error))
     got = fresh(s, budget_seconds=budget_seconds)
-    est = questions.probability(got.result.posterior, cond)
-    return _answer(got, "prob", f"P({text.strip()})", Number(est.value, est.error))
+    notes: list[str] = []
+    est = questions.probability(got.result.posterior, cond, notes=notes, text=text.strip())
+    return _answer(got, "prob", f"P({text.strip()})", Number(est.value, est.error),
+                   tuple(notes))
 
 
 def moment(s: State, kind: str, text: str, *, budget_seconds: float) -> Outcome:
@@ -182,12 +236,13 @@ def moment(s: State, kind: str, text: str, *, budget_seconds: float) -> Outcome:
         return _frame_moment(s, kind, text, e, budget_seconds)
     got = fresh(s, budget_seconds=budget_seconds)
     post = got.result.posterior
-    mo = questions.moments(post, e)
+    notes: list[str] = []
+    mo = questions.moments(post, e, notes=notes, text=text.strip())
     est = mo.mean if kind == "mean" else mo.sd
     if est.method == "absent":
         return _answer(got, kind, f"{kind} of {text.strip()}", _no_moment(post, e, kind))
     return _answer(got, kind, f"{kind} of {text.strip()}",
-                   Number(float(est.value), est.error, scale=mo.sd.value))
+                   Number(float(est.value), est.error, scale=mo.sd.value), tuple(notes))
 
 
 def _no_moment(post, e: sp.Basic, kind: str) -> NoMoment:
@@ -282,9 +337,10 @@ def quantile(s: State, text: str, q: float, *, budget_seconds: float) -> Outcome
         return _answer(got, "quantile", f"{q:g} quantile of {text.strip()}",
                        Number(est.value, est.error))
     got = fresh(s, budget_seconds=budget_seconds)
-    est = questions.quantile(got.result.posterior, e, q)
+    notes: list[str] = []
+    est = questions.quantile(got.result.posterior, e, q, notes=notes, text=text.strip())
     return _answer(got, "quantile", f"{q:g} quantile of {text.strip()}",
-                   Number(est.value, est.error))
+                   Number(est.value, est.error), tuple(notes))
 
 
 # ---------------------------------------------------------------------------

@@ -83,7 +83,8 @@ _STATS = (("mean", "mean"), ("sd", "sd"), ("q025", "q2.5"), ("q50", "q50"), ("q9
 
 
 def summary_csv(summary) -> tuple[str, int]:
-    """One row a parameter: each statistic and its estimated error."""
+    """One row a parameter and a let: each statistic and its estimated error (empty
+    where a let's could not be given)."""
     header = ["parameter"]
     for _, label in _STATS:
         header += [label, label + "_error"]
@@ -92,7 +93,9 @@ def summary_csv(summary) -> tuple[str, int]:
         row = [r.name]
         for attr, _ in _STATS:
             e = getattr(r, attr)
-            row += [repr(float(e.value)), "" if e.error is None else repr(float(e.error))]
+            ok = math.isfinite(e.value)
+            row += [repr(float(e.value)) if ok else "",
+                    "" if e.error is None or not ok else repr(float(e.error))]
         rows.append(row)
     return _csv_text(header, rows), len(rows)
 
@@ -101,8 +104,12 @@ def to_json(post: Posterior, summary, *, meta: Mapping[str, object] | None = Non
             mode=None) -> str:
     """Summary, log evidence, the joint mode (anything with `values`, `converged` and `message`, when given) and every
     marginal as one JSON document, every number to full double precision."""
-    params = {}
+    params, lets = {}, {}
     for r in summary.rows:
+        if r.let:
+            lets[r.name] = {"mean": _est(r.mean), "sd": _est(r.sd), "q2.5": _est(r.q025),
+                            "q50": _est(r.q50), "q97.5": _est(r.q975)}
+            continue
         m = post.marginal(r.name)
         params[r.name] = {
             "discrete": bool(m.discrete),
@@ -119,6 +126,7 @@ def to_json(post: Posterior, summary, *, meta: Mapping[str, object] | None = Non
                  [a.describe() for a in post.grid.axes]),
         "log_evidence": _est(summary.log_evidence),
         "parameters": params,
+        "lets": lets,
     }
     if mode is not None:
         doc["mode"] = {"values": {k: _f(v) for k, v in mode.values.items()},

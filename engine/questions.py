@@ -23,7 +23,7 @@ from scipy import optimize
 
 from .errors import ComputeError, ModelError
 from .model import ParamFunction, expand_lets, param_function
-from . import regions
+from . import finite, regions
 from .posterior import BLOCK, Estimate, Posterior, _block_theta, combine, evaluate_block
 
 
@@ -101,12 +101,6 @@ def _constant(e: sp.Basic) -> float:
     return value.real
 
 
-def _not_finite(post: Posterior, theta, k: int) -> ComputeError:
-    where = ", ".join(f"{a.name} = {t[k]:.6g}" for a, t in zip(post.grid.axes, theta))
-    return ComputeError(f"the expression is not a finite number at {where}, where the "
-                        "posterior is not zero")
-
-
 def _truncated(est: Estimate, term: float) -> Estimate:
     """`est` with `term` (the effect of the mass beyond the grid) added to its error."""
     if est.error is None or not term > 0:
@@ -140,8 +134,14 @@ class Moments:
     sd: Estimate
 
 
-def moments(post: Posterior, expr: sp.Expr) -> Moments:
-    """Posterior mean and sd of `expr` (parameters and lets)."""
+def moments(post: Posterior, expr: sp.Expr, *, notes: list | None = None,
+            text: str | None = None) -> Moments:
+    """Posterior mean and sd of `expr` (parameters and lets).
+
+    Nodes where it is not a finite number are left out when their posterior mass
+    is below the answers' relative error (and noted in `notes`), else refused; so
+    is an expression that grows faster than 1/distance near a node of positive
+    density (its mean does not exist)."""
     ex = _compile(post, expr)
     e, fn = ex.expr, ex.fn
     if isinstance(e, sp.Symbol):
@@ -152,12 +152,28 @@ def moments(post: Posterior, expr: sp.Expr) -> Moments:
     absent = _absent_moments(post, e)
     if absent is not None:
         return absent
-    return moments_on_grid(post, e, fn)
+    return moments_on_grid(post, e, fn, notes=notes, text=text)
 
 
-def moments_on_grid(post: Posterior, e: sp.Expr, fn: ParamFunction | None = None) -> Moments:
-    """Mean and sd of `e` (lets expanded) summed over the grid's points."""
+def moments_on_grid(post: Posterior, e: sp.Expr, fn: ParamFunction | None = None, *,
+                    notes: list | None = None, text: str | None = None) -> Moments:
+    """Mean and sd of `e` (lets expanded) summed over the grid's points (see
+    `moments` for the points where it is not a finite number)."""
     fn = fn or param_function(e, post.compiled.params)
+    text = text or str(e)
+    nf = finite.scan(post, fn)
+    if nf.pole is not None:
+        raise ComputeError(f"`{text}` has no mean or sd: it grows faster than 1/distance "
+                           f"near {nf.pole}, where the posterior is not zero; ask for its "
+                           "quantiles or an interval")
+    if nf.infinite > finite.NEGLIGIBLE_INFINITE:
+        # an overflow beside a node of positive density: the expression's values
+        # there outweigh any small mass, so the mean is carried by the far tails
+        raise ComputeError(
+            f"`{text}` has no mean or sd here: it is infinite (beyond 1e308) on posterior "
+            f"mass {nf.infinite:.2g}, first at {nf.where}, and where a quantity overflows "
+            "with the posterior not zero its mean is carried by the far tails (or does not "
+            "exist); ask for its quantiles or an interval, or the mean of its log")
     L = post.levels + 1
     s0 = np.zeros(L)
     s1 = np.zeros(L)
@@ -166,20 +182,21 @@ def moments_on_grid(post: Posterior, e: sp.Expr, fn: ParamFunction | None = None
     vmin, vmax = math.inf, -math.inf
     for b in walk(post):
         theta, ws = b.theta, b.weights
-        v = fn(theta)
-        live = ws[0] > 0
+        v = np.broadcast_to(np.asarray(fn(theta), float), ws[0].shape)
+        ok = np.isfinite(v)
+        live = (ws[0] > 0) & ok
         if live.any():
             vmin, vmax = min(vmin, float(np.min(v[live]))), max(vmax, float(np.max(v[live])))
-        if np.any(~np.isfinite(v[live])):
-            raise _not_finite(post, theta, int(np.flatnonzero(live & ~np.isfinite(v))[0]))
-        if shift is None:
-            shift = float(np.sum(v * ws[0]) / max(np.sum(ws[0]), 1e-300))
-        d = np.where(np.isfinite(v), v - shift, 0.0)
+        if shift is None and live.any():
+            shift = float(np.sum(v[live] * ws[0][live]) / max(np.sum(ws[0][live]), 1e-300))
+        d = np.where(ok, v - (shift or 0.0), 0.0)
         with np.errstate(over="ignore", invalid="ignore"):  # overflow is refused below
             for k, w in enumerate(ws):
+                w = np.where(ok, w, 0.0)
                 s0[k] += w.sum()
                 s1[k] += np.dot(w, d)
                 s2[k] += np.dot(w, d * d)
+    shift = shift or 0.0
     with np.errstate(all="ignore"):
         means = [float(shift + s1[k] / s0[k]) for k in range(L)]
         var = [float(s2[k] / s0[k] - (s1[k] / s0[k]) ** 2) for k in range(L)]
@@ -191,8 +208,13 @@ def moments_on_grid(post: Posterior, e: sp.Expr, fn: ParamFunction | None = None
     sds = [math.sqrt(max(v, 0.0)) if math.isfinite(v) else None for v in var]
     # the mass beyond the grid could sit anywhere in the expression's range
     span = (vmax - vmin) * post.diagnostics.missing if vmax > vmin else 0.0
-    return Moments(_truncated(_levels_estimate(post, means), span),
-                   _truncated(_levels_estimate(post, sds), span))
+    mo = Moments(_truncated(_levels_estimate(post, means), span),
+                 _truncated(_levels_estimate(post, sds), span))
+    scale = max(abs(mo.mean.value), mo.sd.value, 1e-300)
+    rel = min(e.error for e in (mo.mean, mo.sd)) / scale if (
+        mo.mean.error is not None and mo.sd.error is not None) else 0.0
+    finite.check(post, nf, text, rel, what="mean", notes=notes)
+    return mo
 
 
 def _absent_moments(post: Posterior, e: sp.Expr) -> Moments | None:
@@ -298,27 +320,6 @@ def _fraction(rel: _Rel, theta, half: list[np.ndarray]) -> np.ndarray:
     return np.where(np.isnan(s), np.nan, out)
 
 
-def _defined(post: Posterior, rels: list[_Rel]) -> None:
-    """Refuse a condition whose sides are not numbers where the posterior has mass,
-    whichever way it is then integrated."""
-    for b in walk(post):
-        for r in rels:
-            with np.errstate(all="ignore"):
-                s = np.broadcast_to(np.asarray(r.s(b.theta), float), b.weights[0].shape)
-            _undefined(post, b.theta, np.where(np.isnan(s), np.nan, 0.0), b.weights[0])
-
-
-def _undefined(post: Posterior, theta, ind: np.ndarray, w: np.ndarray) -> None:
-    """Refuse a condition that is not a number where the posterior has mass."""
-    bad = np.isnan(ind) & (w > 0)
-    if bad.any():
-        k = int(np.flatnonzero(bad)[0])
-        where = ", ".join(f"{a.name} = {t[k]:.6g}" for a, t in zip(post.grid.axes, theta))
-        raise ComputeError(f"the condition cannot be judged at {where}, where the posterior "
-                           "is not zero: a side of it is not a number there (log or sqrt of "
-                           "a negative number, 0/0, ...)")
-
-
 def _judge(tree, fr: list[np.ndarray], n: int) -> np.ndarray:
     kind = tree[0]
     if kind == "const":
@@ -398,12 +399,15 @@ def _single_param(cond: sp.Basic, post: Posterior) -> _OneParamSet | None:
     return None
 
 
-def probability(post: Posterior, cond: sp.Basic) -> Estimate:
+def probability(post: Posterior, cond: sp.Basic, *, notes: list | None = None,
+                text: str | None = None) -> Estimate:
     """Posterior probability of condition `cond` (parameters and lets).
 
     A condition on one continuous parameter is read off its marginal's cdf; others
     are integrated along grid lines (`regions`) where the grid allows, else by the
-    cell fractions (`_cell_fractions`)."""
+    cell fractions (`_cell_fractions`). Where a side of it is not a number, the
+    condition does not hold; that is refused when the mass there exceeds the
+    answer's error, else noted in `notes`."""
     e = expand_lets(cond, post.compiled.model)
     names = {p.name for p in post.compiled.params}
     bad = {s.name for s in e.free_symbols} - names
@@ -418,15 +422,28 @@ def probability(post: Posterior, cond: sp.Basic) -> Estimate:
                             (0.0 if a == -math.inf else m.cdf(a)) for a, b in single.pieces))
         return _truncated(_levels_estimate(post, vals), post.diagnostics.missing)
     judged = _relations(e, post)
-    _defined(post, judged.rels)
+    nf = _scan_all(post, [r.s for r in judged.rels])
     lines = regions.region_probability(post, e)
     if lines is not None:
         # high order, but not a clean power series (the cut moves across the cells as
         # the grid coarsens): the difference with the first coarse level is the error
-        return _truncated(_levels_estimate(post, lines, smooth=False),
-                          post.diagnostics.missing)
-    vals = _cell_fractions(post, judged)
-    return _truncated(_levels_estimate(post, vals, smooth=False), post.diagnostics.missing)
+        est = _truncated(_levels_estimate(post, lines, smooth=False),
+                         post.diagnostics.missing)
+    else:
+        vals = _cell_fractions(post, judged)
+        est = _truncated(_levels_estimate(post, vals, smooth=False), post.diagnostics.missing)
+    finite.check(post, nf, text or str(cond), est.error or 0.0, what="probability",
+                 notes=notes)
+    return est
+
+
+def _scan_all(post: Posterior, fns) -> finite.NonFinite:
+    """Where any of `fns` is not a finite number (masses added: an upper bound)."""
+    parts = [finite.scan(post, f) for f in fns]
+    first = next((p.where for p in parts if p.where is not None), None)
+    return finite.NonFinite(sum(p.undefined for p in parts), sum(p.infinite for p in parts),
+                            sum(p.isolated for p in parts), first,
+                            next((p.pole for p in parts if p.pole is not None), None))
 
 
 def _cell_fractions(post: Posterior, judged: "_Judged") -> list[float]:
@@ -443,8 +460,7 @@ def _cell_fractions(post: Posterior, judged: "_Judged") -> list[float]:
         for lev in range(L):
             half = [h[i] for h, i in zip(halves[lev], b.idx)]
             fr = [_fraction(r, theta, half) for r in judged.rels]
-            ind = _judge(judged.tree, fr, len(theta[0]))
-            _undefined(post, theta, ind, ws[lev])
+            ind = _judge(judged.tree, fr, len(theta[0]))   # NaN: outside (scanned before)
             tot[lev] += np.dot(ws[lev], np.nan_to_num(ind))
             norm[lev] += ws[lev].sum()
     return [float(np.clip(tot[k] / norm[k], 0.0, 1.0)) for k in range(L)]
@@ -453,13 +469,16 @@ def _cell_fractions(post: Posterior, judged: "_Judged") -> list[float]:
 # ---------------------------------------------------------------------------
 # quantiles and distributions of derived quantities
 
-def quantile(post: Posterior, expr: sp.Expr, q: float) -> Estimate:
+def quantile(post: Posterior, expr: sp.Expr, q: float, *, notes: list | None = None,
+             text: str | None = None) -> Estimate:
     """The q-quantile of `expr` under the posterior.
 
     A parameter's quantile comes from its marginal, a strictly monotone function of
     one parameter maps that parameter's quantile (`_monotone_quantile`); otherwise
     ``P(expr <= x) = q`` is solved on every level (`_solve_levels`) from a bracket
-    read off the ranked values at the grid points (`_Ranked`)."""
+    read off the ranked values at the grid points (`_Ranked`). Infinite values order
+    as +-inf; undefined ones are never below x (refused when their mass exceeds the
+    answer's error, else noted in `notes`)."""
     if not 0 < q < 1:
         raise ComputeError(f"quantile level must be between 0 and 1 (exclusive); got {q:g}")
     ex = _compile(post, expr)
@@ -471,9 +490,15 @@ def quantile(post: Posterior, expr: sp.Expr, q: float) -> Estimate:
     mono = _monotone_in_one(post, e)
     if mono is not None:
         return _monotone_quantile(post, mono, q)
+    nf = finite.scan(post, ex.fn)
     ranked = _ranked(post, ex.fn)
+    text = text or str(expr)
     if all(ax.discrete for ax in post.grid.axes):
-        return Estimate(ranked.at(q - 1e-12), 0.0, "exact")
+        finite.check(post, nf, text, 0.0, what="quantile", notes=notes)
+        value = ranked.at(q - 1e-12)
+        if not math.isfinite(value):
+            raise ComputeError(f"the {q:g} quantile of `{text}` is infinite")
+        return Estimate(value, 0.0, "exact")
     a, b = ranked.bracket(q)
     cdf = regions.region_cdf(post, e)
     out = _solve_levels(post, e, q, cdf, a, b)
@@ -481,13 +506,18 @@ def quantile(post: Posterior, expr: sp.Expr, q: float) -> Estimate:
         raise ComputeError("could not solve for the quantile")
     est = _levels_estimate(post, out, smooth=False)
     miss = post.diagnostics.missing
-    if miss > 0 and cdf is not None:
-        # how far the quantile moves if the mass beyond the grid were added
+    # the density at the quantile: how far it moves when mass is misplaced
+    slope = ranked.slope(q)
+    if cdf is not None:
         x0 = out[0]
         dx = 1e-5 * max(abs(x0), abs(b - a), 1e-300)
         p_hi, p_lo = cdf(x0 + dx, 0), cdf(x0 - dx, 0)
         if p_hi is not None and p_lo is not None and p_hi > p_lo:
-            est = _truncated(est, miss * 2 * dx / (p_hi - p_lo))
+            slope = (p_hi - p_lo) / (2 * dx)
+    if miss > 0 and slope > 0:
+        # how far the quantile moves if the mass beyond the grid were added
+        est = _truncated(est, miss / slope)
+    finite.check(post, nf, text, (est.error or 0.0) * slope, what="quantile", notes=notes)
     return est
 
 
@@ -530,11 +560,21 @@ class _Ranked:
         return float(self.values[min(int(np.searchsorted(self.cdf, p)), len(self.values) - 1)])
 
     def bracket(self, q: float) -> tuple[float, float]:
-        """Values about the q-quantile: those at q - 0.05 and q + 0.05, one further out."""
+        """Values about the q-quantile: those at q - 0.05 and q + 0.05, one further out
+        (finite: infinite values are clipped to the finite extremes)."""
         lo_i = int(np.searchsorted(self.cdf, max(q - 0.05, 0.0)))
         hi_i = int(np.searchsorted(self.cdf, min(q + 0.05, 1.0)))
-        return (float(self.values[max(lo_i - 1, 0)]),
-                float(self.values[min(hi_i + 1, len(self.values) - 1)]))
+        fin = self.values[np.isfinite(self.values)]
+        if fin.size == 0:
+            raise ComputeError("the expression is infinite wherever the posterior has mass")
+        lo = float(np.clip(self.values[max(lo_i - 1, 0)], fin[0], fin[-1]))
+        hi = float(np.clip(self.values[min(hi_i + 1, len(self.values) - 1)], fin[0], fin[-1]))
+        return lo, hi
+
+    def slope(self, q: float) -> float:
+        """A rough density at the q-quantile (0.1 over the spread of q -+ 0.05)."""
+        lo, hi = self.bracket(q)
+        return 0.1 / (hi - lo) if hi > lo else 0.0
 
 
 def _ranked(post: Posterior, fn: ParamFunction) -> _Ranked:
@@ -544,9 +584,8 @@ def _ranked(post: Posterior, fn: ParamFunction) -> _Ranked:
         with np.errstate(all="ignore"):
             v = np.broadcast_to(np.asarray(fn(b.theta), float), w0.shape)
         keep = w0 > 0
-        if np.any(~np.isfinite(v[keep])):
-            raise _not_finite(post, b.theta, int(np.flatnonzero(keep & ~np.isfinite(v))[0]))
-        vals.append(v[keep])
+        # undefined values are never below x: ranked last
+        vals.append(np.where(np.isnan(v[keep]), np.inf, v[keep]))
         wts.append(w0[keep])
     v = np.concatenate(vals)
     w = np.concatenate(wts)
@@ -621,8 +660,7 @@ def _prob_le(post: Posterior, e: sp.Expr, x: float, lev: int) -> float:
         theta, ws = b.theta, b.weights
         half = [h[i] for h, i in zip(half_axes, b.idx)]
         ind = _judge(judged.tree, [_fraction(r, theta, half) for r in judged.rels],
-                     len(theta[0]))
-        _undefined(post, theta, ind, ws[lev])
+                     len(theta[0]))   # NaN: outside the condition
         tot += float(np.dot(ws[lev], np.nan_to_num(ind)))
         norm += float(ws[lev].sum())
     return tot / norm

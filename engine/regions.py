@@ -248,8 +248,10 @@ class _LinePlan:
     separable: list[int]
 
 
-def _plan(rels: list[_Relation], post: Posterior) -> _LinePlan | None:
-    """Choose the line axis; split relations into line, separable and exact ones."""
+def _plan(rels: list[_Relation], post: Posterior, prefer: list[int] | None = None
+          ) -> _LinePlan | None:
+    """Choose the line axis (the first of `prefer` that qualifies, when given); split
+    relations into line, separable and exact ones."""
     axes = post.grid.axes
     multi = [r for r in rels if len(r.cont) > 1 or (r.cont and r.disc)]
     candidates = [k for k, a in enumerate(axes) if not a.discrete]
@@ -260,6 +262,9 @@ def _plan(rels: list[_Relation], post: Posterior) -> _LinePlan | None:
         # prefer an axis that some relation reads
         read = [next(iter(r.cont)) for r in rels if r.cont]
         candidates = sorted(candidates, key=lambda k: (k not in read, k))
+    if prefer is not None:
+        candidates = sorted(candidates, key=lambda k: prefer.index(k) if k in prefer
+                            else len(prefer))
     for k in candidates:
         if not _qualifies(axes[k]):
             continue
@@ -354,7 +359,7 @@ def region_probability(post: Posterior, cond: sp.Basic) -> list[float] | None:
     parsed = _parse(cond, post)
     if parsed is None:
         return None
-    plan = _plan(parsed.rels, post)
+    plan = _plan(parsed.rels, post, transverse_axes(post, [r.s for r in parsed.rels]))
     if plan is None:
         return None
     out = []
@@ -563,14 +568,20 @@ class _Segments:
         The density's integral over each segment.
     truth : dict of int to ndarray of bool
         Each along-line relation's truth value on each segment.
+    undefined : ndarray of bool
+        Segments where a relation's sides are not numbers: outside the condition,
+        whatever its and / or / not say.
     """
 
     rows: np.ndarray
     integral: np.ndarray
     truth: dict[int, np.ndarray]
+    undefined: np.ndarray
 
 
-def _segments(lines: _Lines, rels, along: list[int]) -> _Segments:
+def _segments(lines: _Lines, rels, along: list[int], nodes: dict | None = None) -> _Segments:
+    """The segments of every line; `nodes` may give a relation's side at the nodes
+    already (relation index -> shape (L, n_k))."""
     L, n_k, uk = lines.count, lines.n_k, lines.uk
     vals_k = lines.axis.to_value
     rows_b, cells_b, x_b = [], [], []
@@ -583,7 +594,10 @@ def _segments(lines: _Lines, rels, along: list[int]) -> _Segments:
             stop = min(L, start + step)
             rows = np.repeat(np.arange(start, stop), n_k)
             kv = np.tile(lines.axis.values[lines.sel[lines.k]], stop - start)
-            s = r.s(lines.theta(rows, kv)).reshape(stop - start, n_k)
+            if nodes is not None and i in nodes:
+                s = nodes[i][start:stop]
+            else:
+                s = r.s(lines.theta(rows, kv)).reshape(stop - start, n_k)
             t = _truth(r.op, s)
             rr, cc = np.nonzero(t[:, :-1] != t[:, 1:])
             if rr.size == 0:
@@ -605,8 +619,12 @@ def _segments(lines: _Lines, rels, along: list[int]) -> _Segments:
     seg_rows = rows_all[:-1][same]
     seg_mid = (0.5 * (x_all[1:] + x_all[:-1]))[same]
     th_mid = lines.theta(seg_rows, vals_k(seg_mid))
-    truth = {i: _truth(rels[i].op, rels[i].s(th_mid)) for i in along}
-    return _Segments(seg_rows, (Fv[1:] - Fv[:-1])[same], truth)
+    truth, undefined = {}, np.zeros(len(seg_rows), bool)
+    for i in along:
+        s_mid = np.broadcast_to(np.asarray(rels[i].s(th_mid), float), seg_rows.shape)
+        truth[i] = _truth(rels[i].op, s_mid)
+        undefined |= np.isnan(s_mid)
+    return _Segments(seg_rows, (Fv[1:] - Fv[:-1])[same], truth, undefined)
 
 
 def _numerator(tree, segs: _Segments, cross: _CrossWeights, lines: _Lines, sep: list[int]
@@ -614,7 +632,7 @@ def _numerator(tree, segs: _Segments, cross: _CrossWeights, lines: _Lines, sep: 
     """The integral of the density over the segments where `tree` holds, each line
     weighted across; with separable relations, summed over their truth values."""
     if not sep:
-        ok = np.asarray(_judge(tree, segs.truth), bool) & np.ones(len(segs.rows), bool)
+        ok = np.asarray(_judge(tree, segs.truth), bool) & ~segs.undefined
         return float(np.dot(cross.full_factor[segs.rows], np.where(ok, segs.integral, 0.0)))
     num = 0.0
     for sig in itertools.product((True, False), repeat=len(sep)):
@@ -622,7 +640,7 @@ def _numerator(tree, segs: _Segments, cross: _CrossWeights, lines: _Lines, sep: 
         assign = dict(zip(sep, sig))
         for i in sep:
             values[i] = np.full(len(segs.rows), assign[i])
-        ok = np.asarray(_judge(tree, values), bool)
+        ok = np.asarray(_judge(tree, values), bool) & ~segs.undefined
         if not ok.any():
             continue
         ws = []
@@ -660,12 +678,187 @@ def region_cdf(post: Posterior, expr: sp.Expr):
         return None
     base = param_function(expr, params)
     probe = _Relation(base, "le", cont, disc)
-    plan = _plan([probe], post)
+    plan = _plan([probe], post, transverse_axes(post, [base]))
     if plan is None:
         return None
 
+    cache: dict[int, tuple | None] = {}
+
+    def prepared(lev: int):
+        # the lines of a level, their weights and the expression at their nodes, once
+        if lev not in cache:
+            lines = _level_lines(post, plan.axis, lev)
+            if lines is None:
+                cache[lev] = None
+            else:
+                cross = _cross_weights(post, lines, [], [], lev)
+                total = float(np.dot(cross.full_factor, lines.line.total(lines.C)))
+                rows = np.repeat(np.arange(lines.count), lines.n_k)
+                kv = np.tile(lines.axis.values[lines.sel[plan.axis]], lines.count)
+                g = np.broadcast_to(np.asarray(base(lines.theta(rows, kv)), float),
+                                    rows.shape).reshape(lines.count, lines.n_k)
+                cache[lev] = (lines, cross, total, g)
+        return cache[lev]
+
     def cdf(x: float, lev: int) -> float | None:
+        got = prepared(lev)
+        if got is None:
+            return None
+        lines, cross, total, g = got
+        if not total > 0:
+            return None
         rel = _Relation(_Shifted(base, x), "le", cont, disc)
-        return _level_probability(post, ("rel", 0), [rel], plan.axis, [], lev)
+        segs = _segments(lines, [rel], [0], {0: g - x})
+        return min(max(_numerator(("rel", 0), segs, cross, lines, []) / total, 0.0), 1.0)
 
     return cdf
+
+
+def transverse_axes(post: Posterior, fns: list[ParamFunction]) -> list[int] | None:
+    """The continuous axes, best line axis first, where the functions are not
+    finite at some nodes of positive density (a pole or 0/0 on a node, as `-a/b`
+    with the node b = 0): along a line that crosses such a set the root finder
+    splits the line at it and each side is judged on its own, while a line lying in
+    it would carry the value of one side only, a jump across the lines that the
+    rule there integrates to first order. So the axes along which fewest such nodes
+    have a bad neighbour come first; None when every node is finite."""
+    grid = post.grid
+    if post.logp is None or len(grid.axes) < 2:
+        return None
+    shape = grid.shape
+    bad = np.zeros(grid.size, bool)
+    for start, stop in grid.blocks(1 << 18):
+        theta = [a.values[i] for a, i in zip(grid.axes, grid.indices(start, stop))]
+        live = np.isfinite(post.logp[start:stop])
+        for fn in fns:
+            v = np.broadcast_to(np.asarray(fn(theta), float), live.shape)
+            bad[start:stop] |= live & ~np.isfinite(v)
+    if not bad.any():
+        return None
+    bad = bad.reshape(shape)
+    runs = {}
+    for k, a in enumerate(grid.axes):
+        if a.discrete or a.n < 2:
+            continue
+        lo = [slice(None)] * len(shape)
+        hi = [slice(None)] * len(shape)
+        lo[k], hi[k] = slice(0, -1), slice(1, None)
+        runs[k] = int(np.count_nonzero(bad[tuple(lo)] & bad[tuple(hi)]))
+    return sorted(runs, key=lambda k: (runs[k], k))
+
+
+def _lagrange_basis() -> np.ndarray:
+    """Coefficients (6, 6) of the Lagrange basis polynomials on the nodes 0 .. 5."""
+    nodes = np.arange(6.0)
+    out = np.zeros((6, 6))
+    for m in range(6):
+        others = np.delete(nodes, m)
+        out[m] = np.poly(others) / np.prod(nodes[m] - others)
+    return out
+
+
+_BASIS = _lagrange_basis()
+
+
+def region_density(post: Posterior, expr: sp.Expr):
+    """A function ``density(x, level)`` giving the posterior density of `expr` at x
+    by the coarea formula along grid lines, or None when the expression or the grid
+    is outside what line integration handles.
+
+    The density is split over the continuous axes the expression reads by a
+    partition of unity, w_k = (h_k d_k g)^2 / sum_j (h_j d_j g)^2 (d_j the slope
+    along axis j's scale, h_j its spacing), and part k is integrated along the lines
+    of axis k: on each line the roots u* of g = x are solved for as in `region_cdf`,
+    and the line contributes f w_k / |d_k g| = f h_k^2 |d_k g| / sum_j (h_j d_j g)^2
+    there (f interpolated by the local quintic through the six nodes about the
+    root's cell); the lines are weighted across by the rule. So a line that lies
+    along a level set (`-a/b` = 0 on the line a = 0 along b) or runs into a pole
+    carries no weight where it would be singular: another axis crosses there. A
+    sign change through a pole is no root (its slope is unbounded; it adds
+    nothing)."""
+    if post.logp is None:
+        return None
+    params = post.compiled.params
+    axes = post.grid.axes
+    used = [k for k, p in enumerate(params) if p.symbol in expr.free_symbols]
+    cont = frozenset(k for k in used if not axes[k].discrete)
+    disc = frozenset(k for k in used if axes[k].discrete)
+    if not cont or not all(_qualifies(axes[k]) for k in cont):
+        return None
+    base = param_function(expr, params)
+    cache: dict[tuple[int, int], tuple] = {}
+
+    def prepared(k: int, lev: int):
+        if (k, lev) not in cache:
+            lines = _level_lines(post, k, lev)
+            if lines is None:
+                cache[k, lev] = None
+            else:
+                cross = _cross_weights(post, lines, [], [], lev)
+                total = float(np.dot(cross.full_factor, lines.line.total(lines.C)))
+                rows = np.repeat(np.arange(lines.count), lines.n_k)
+                kv = np.tile(lines.axis.values[lines.sel[k]], lines.count)
+                g = np.broadcast_to(np.asarray(base(lines.theta(rows, kv)), float),
+                                    rows.shape).reshape(lines.count, lines.n_k)
+                cache[k, lev] = (lines, cross, total, g)
+        return cache[k, lev]
+
+    def slopes(lines: _Lines, rows: np.ndarray, ur: np.ndarray, lev: int) -> dict:
+        """h_j d_j g at the points `ur` of lines `rows`, for every axis j in `cont`."""
+        k = lines.k
+        th = lines.theta(rows, lines.axis.to_value(ur))
+        out = {}
+        for j in cont:
+            a = axes[j]
+            h = lines.line.h if j == k else abs(a.u[1] - a.u[0]) * a.nest ** lev
+            du = 1e-6 * h
+            if j == k:
+                u0 = ur
+            else:
+                q = lines.others.index(j)
+                u0 = a.u[lines.sel[j]][lines.index[q][rows]]
+            up, dn = list(th), list(th)
+            up[j], dn[j] = a.to_value(u0 + du), a.to_value(u0 - du)
+            with np.errstate(all="ignore"):
+                out[j] = (np.asarray(base(up), float) - np.asarray(base(dn), float)) / 2e-6
+        return out
+
+    def part(k: int, x: float, lev: int) -> float | None:
+        got = prepared(k, lev)
+        if got is None:
+            return None
+        lines, cross, total, g = got
+        if not total > 0:
+            return None
+        uk, n_k, h = lines.uk, lines.n_k, lines.line.h
+        with np.errstate(invalid="ignore"):
+            t = g - x <= 0
+        rr, cc = np.nonzero(t[:, :-1] != t[:, 1:])
+        if rr.size == 0:
+            return 0.0
+        rel = _Relation(_Shifted(base, x), "le", cont, disc)
+        ur = _roots(rel, lambda kvals, m: lines.theta(rr[m], kvals), uk[cc], uk[cc + 1],
+                    g[rr, cc] - x, g[rr, cc + 1] - x, lines.axis.to_value)
+        s0 = np.clip(cc - 2, 0, n_k - 6)
+        tb = (ur - uk[s0]) / h
+        f_root = np.zeros(len(rr))
+        for m in range(6):
+            f_root += np.polyval(_BASIS[m], tb) * lines.f[rr, s0 + m]
+        sl = slopes(lines, rr, ur, lev)
+        with np.errstate(all="ignore"):
+            norm = sum(v * v for v in sl.values())
+            # f w_k / |d_k g| with d_k g in u: (h d_k g) / h over the norm of the h d g
+            contrib = cross.full_factor[rr] * np.maximum(f_root, 0.0) * h * np.abs(sl[k]) / norm
+        contrib = np.where(np.isfinite(contrib), contrib, 0.0)
+        return float(contrib.sum() / total)
+
+    def density(x: float, lev: int) -> float | None:
+        total = 0.0
+        for k in sorted(cont):
+            v = part(k, x, lev)
+            if v is None:
+                return None
+            total += v
+        return total
+
+    return density

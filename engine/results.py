@@ -257,6 +257,7 @@ class SummaryRow:
     q025: Estimate
     q50: Estimate
     q975: Estimate
+    let: bool = False     # a let's row (its statistics computed from its expression)
 
 
 @dataclass(frozen=True)

@@ -256,6 +256,10 @@ class Workspace:
     def interval(self, name: str, level: float = 0.95, kind: str = "central") -> Answer:
         return self._ask(asking.interval, name, level, kind)
 
+    def density(self, text: str) -> Answer:
+        """The posterior density of a let or an expression (its detail a `Curve`)."""
+        return self._ask(asking.density, text)
+
     def mode(self) -> Answer:
         return self._ask(asking.mode)
 

@@ -213,27 +213,42 @@ question("quantile", "quantile EXPR Q [Q ...]", ask=ask_quantile, help="""
 # ---------------------------------------------------------------------------
 # interval, mode, evidence
 
-INTERVAL_USAGE = "interval NAME [LEVEL] [hpd|central]"
+INTERVAL_USAGE = "interval EXPR [LEVEL] [hpd|central]"
+
+
+def _is_level(t: str) -> bool:
+    try:
+        v = float(t[:-1]) / 100 if t.endswith("%") else float(t)
+    except ValueError:
+        return False
+    return math.isfinite(v)
 
 
 def ask_interval(app, line: Line) -> Asked:
     w = line.words
     if len(w) < 2:
-        raise ShellError(f"`interval` needs a parameter: {INTERVAL_USAGE}", line.end_column())
+        raise ShellError(f"`interval` needs a parameter, a let or an expression: "
+                         f"{INTERVAL_USAGE}", line.end_column())
     level, kind = 0.95, "central"
+    # the options are the trailing words: a kind, a level (in either order)
+    end = len(w)
     seen_level = seen_kind = False
-    for x in w[2:]:
+    while end > 2:
+        x = w[end - 1]
         if x.text in ("hpd", "central") and not seen_kind:
             kind, seen_kind = x.text, True
-            continue
-        if not seen_level and x.text not in ("hpd", "central"):
+        elif not seen_level and _is_level(x.text):
             level, seen_level = fraction(x, "level"), True
-            continue
-        raise ShellError(f"unexpected `{x.text}`; usage: {INTERVAL_USAGE}", x.column)
-    name = w[1].text
-    if name not in app.ws.model.param_names and name not in predicted_names(app.ws):
-        raise ShellError(f"no parameter `{name}`", w[1].column)
-    a = app.ws.interval(name, level, kind)
+        else:
+            break
+        end -= 1
+    if end == 2:
+        name = w[1].text
+        if name in app.ws.model.param_names or name in predicted_names(app.ws):
+            a = app.ws.interval(name, level, kind)
+            return _asked(line, a, line.text, scale=abs(a.detail.hi - a.detail.lo))
+    seg = line.part(w[1].start, w[end - 1].end).rest(0)
+    a = formula_at(seg, app.ws.interval, seg.text, level, kind)
     return _asked(line, a, line.text, scale=abs(a.detail.hi - a.detail.lo))
 
 
@@ -244,7 +259,7 @@ def predicted_names(ws) -> tuple[str, ...]:
 
 def _complete_interval(words, text):
     if len(words) == 1:
-        return Slot(params=True, predicted=True)
+        return Slot.formula(predicted=True)
     return Slot(words=("0.9", "0.95", "0.99", "hpd", "central"))
 
 
@@ -277,9 +292,10 @@ def ask_evidence(app, line: Line) -> Asked:
 
 
 question("interval", INTERVAL_USAGE, ask=ask_interval, complete=_complete_interval, help="""
-    A credible interval of a parameter: central (equal tails, the default) or hpd (highest
-    density; a region of several pieces is listed in a note), at LEVEL (default 0.95; 90%
-    also reads). For a name given to `predict`, the central interval of the new
+    A credible interval of a parameter, a let or any expression of them (`interval ld50`,
+    `interval a / b 0.9`): central (equal tails, the default) or hpd (highest density; a
+    region of several pieces is listed in a note), at LEVEL (default 0.95; 90% also
+    reads). For a name given to `predict`, the central interval of the new
     observation.""")
 question("mode", "mode", ask=ask_mode, complete=lambda words, text: NOTHING, help="""
     The joint posterior mode: the best grid point, polished by an optimiser over the
@@ -336,7 +352,7 @@ def summary(app, line: Line):
     rows, errs, absent = [], [], []
     for r in s.rows:
         ests = (r.mean, r.sd, r.q025, r.q50, r.q975)
-        rows.append([r.name] + summary_cells(r, s.unresolved))
+        rows.append([r.name + (" (let)" if r.let else "")] + summary_cells(r, s.unresolved))
         errs.extend(e.error for e in ests if e.error is not None)
         gone = [w for w, e in (("mean", r.mean), ("sd", r.sd)) if e.method == "absent"]
         if gone:
@@ -364,8 +380,8 @@ def summary(app, line: Line):
 
 def _cell(e, unresolved: str = "") -> str:
     """A summary cell: the value to the digit its error supports, or `-` for a
-    moment that does not exist."""
-    if e.method == "absent":
+    moment that does not exist (or a let's number that could not be given)."""
+    if e.method == "absent" or not math.isfinite(e.value):
         return "-"
     return R.num(e.value, 2) if unresolved else R.to_error(e.value, e.error)
 
@@ -377,7 +393,8 @@ SUMMARY_HEAD = ["parameter", "mean", "± error", "sd", "median", "95% credible i
 def summary_cells(r, unresolved: str = "") -> list[str]:
     """One parameter's summary: mean, the mean's numerical error, sd, median and
     the central 95% interval as ``LO to HI``."""
-    err = R.err(r.mean.error) if r.mean.method != "absent" else ""
+    err = R.err(r.mean.error) if (r.mean.method != "absent" and r.mean.error is not None
+                                  and math.isfinite(r.mean.value)) else ""
     # in the stacked form the error follows the mean: "mean 0.3143 ± 5e-5"
     u = unresolved
     return [_cell(r.mean, u), err, _cell(r.sd, u), _cell(r.q50, u),
@@ -385,19 +402,22 @@ def summary_cells(r, unresolved: str = "") -> list[str]:
 
 
 def _summary_shown(s) -> list[Shown]:
+    """The check lines of a summary: every number it showed (a let's that could not
+    be given, none)."""
     shown = []
     for r in s.rows:
         sd = r.sd.value
         spread = sd if math.isfinite(sd) else abs(r.q975.value - r.q025.value)
-        if r.mean.method != "absent":
+        if r.mean.method != "absent" and math.isfinite(r.mean.value):
             shown.append(Shown(f"mean {r.name}", (r.mean.value,),
                                R.check_tol([r.mean.value], [r.mean.error], scale=spread)))
-        if r.sd.method != "absent":
+        if r.sd.method != "absent" and math.isfinite(sd):
             shown.append(Shown(f"sd {r.name}", (sd,),
                                R.check_tol([sd], [r.sd.error], scale=spread)))
         for q, e in (("0.025", r.q025), ("0.5", r.q50), ("0.975", r.q975)):
-            shown.append(Shown(f"quantile {r.name} {q}", (e.value,),
-                               R.check_tol([e.value], [e.error], scale=spread)))
+            if math.isfinite(e.value):
+                shown.append(Shown(f"quantile {r.name} {q}", (e.value,),
+                                   R.check_tol([e.value], [e.error], scale=spread)))
     if s.log_evidence is not None:
         ev = s.log_evidence
         shown.append(Shown("evidence", (ev.value,), R.check_tol([ev.value], [ev.error])))

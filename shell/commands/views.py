@@ -153,11 +153,12 @@ def grid_lines(ws) -> list[str]:
 
 def _complete_plot(words, text):
     if len(words) == 1:
-        return Slot(params=True, predicted=True, words=("refine",))
+        return Slot(params=True, predicted=True, lets=True, words=("refine",))
     return Slot(params=True) if len(words) == 2 and words[1] != "refine" else NOTHING
 
 
-PLOT_USAGE = "plot NAME [NAME2] [to FILE.txt [force]]  or  plot refine [to FILE.txt [force]]"
+PLOT_USAGE = ("plot EXPR [to FILE.txt [force]]  or  plot NAME NAME2 [to FILE.txt [force]]"
+              "  or  plot refine [to FILE.txt [force]]")
 
 
 class _Picture:
@@ -218,7 +219,9 @@ def _written(app, dest, pic: "_Picture") -> None:
 
 @command("plot", usage=PLOT_USAGE, group="view", complete=_complete_plot,
          help="""Draws the posterior marginal of a parameter in the terminal, with its central
-         95% interval marked (a discrete parameter as bars); with two names, their joint
+         95% interval marked (a discrete parameter as bars), or the posterior density of a
+         let or any expression of the parameters (`plot ld50`, `plot a / b`); with two
+         parameters, their joint
          posterior as a density picture. A name given to `predict` draws the predictive
          pmf or density of the new observation. `plot refine` draws how the refinement
          steps of the current posterior converged: the largest relative change at each
@@ -230,10 +233,17 @@ def plot(app, line: Line):
     w, dest = _destination(app, line)
     if len(w) < 2:
         raise ShellError(f"`plot` needs a parameter: {PLOT_USAGE}", line.end_column())
+    params = app.ws.model.param_names
+    pic = _Picture(app.printer) if dest is not None else app.printer
+    derived_plot = (len(w) == 2 and w[1].text not in params) or (
+        len(w) > 2 and not all(x.text in params for x in w[1:]))
+    if derived_plot and not (w[1].text == "refine" and "refine" not in params):
+        predicted = {p.name for p in app.ws.predictions}
+        if not (len(w) == 2 and w[1].text in predicted):
+            plot_derived(app, line, w, pic)
+            return _written(app, dest, pic) if dest is not None else None
     if len(w) > 3:
         raise ShellError(f"unexpected `{w[3].text}`; usage: {PLOT_USAGE}", w[3].column)
-    pic = _Picture(app.printer) if dest is not None else app.printer
-    params = app.ws.model.param_names
     if w[1].text == "refine" and "refine" not in params:
         if len(w) > 2:
             raise ShellError(f"unexpected `{w[2].text}`: `plot refine` takes nothing",
@@ -322,7 +332,27 @@ def plot_refine(app, p) -> None:
                        for i, s in enumerate(steps, 1)], align="rrrl")])
 
 
-def plot_predicted(app, name: str, p) -> None:
+def plot_derived(app, line: Line, words, p) -> None:
+    """The posterior density of a let or an expression, with its central 95% interval."""
+    from .. import plots
+    from ..words import formula_at
+
+    seg = line.part(words[1].start, words[-1].end).rest(0)
+    a = formula_at(seg, app.ws.density, seg.text)
+    notes(app, a.notes)
+    c = a.detail
+    if app.ws.in_whatif:
+        p.note("drawn for the what-if state")
+    try:
+        text = plots.marginal(c.x, c.density, name=seg.text, width=p.width,
+                              height=p.room(20), discrete=False, interval=c.interval,
+                              color=p.color)
+    except ValueError as exc:
+        raise ShellError(f"cannot draw it: {exc}") from None
+    p.block(text)
+
+
+def plot_predicted(app, name: str) -> None:
     """The predictive pmf or density of a new observation named by `predict`."""
     from .. import plots
 
