@@ -122,7 +122,7 @@ class Curve:
     interval: tuple[float, float]
 
 
-def curve(post: Posterior, expr: sp.Expr, *, points: int = 81, tail: float = 1e-4,
+def curve(post: Posterior, expr: sp.Expr, *, points: int = 61, tail: float = 1e-4,
           notes: list | None = None) -> Curve:
     """The density of `expr` on `points` evenly spaced values between its `tail` and
     1 - `tail` quantiles, with its central 95% interval."""

@@ -90,9 +90,9 @@ def test_save_then_replay_reproduces_every_number(tmp_path):
     assert code == 0, err
     saved = (tmp_path / "s.qd").read_text()
     checks = [x for x in saved.splitlines() if x.startswith("check ")]
-    # every number the questions showed has its check line: summary 5 a parameter plus the
-    # evidence, then one for each of the other questions
-    assert len(checks) == 2 * 5 + 1 + 8
+    # every number the questions showed has its check line: summary 5 a parameter and a
+    # let plus the evidence, then one for each of the other questions
+    assert len(checks) == 3 * 5 + 1 + 8
     code, out2, err = run(["s.qd"], cwd=tmp_path)
     assert code == 0, err
     assert out2.count("check ok: ") == len(checks)
