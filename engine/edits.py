@@ -171,6 +171,9 @@ def _keep_posterior(old: State, new: State) -> State:
     compiled = replace(post.compiled, model=new.model)
     if old.memo.get(old.content) is not None:
         new.remember(compiled)
+    if old.sized is not None and old.sized.content == old.content:
+        # the same density: the axes sized for it still fit
+        new = replace(new, sized=replace(old.sized, content=new.content))
     return new.with_posterior(replace(post, compiled=compiled))
 
 
@@ -299,7 +302,11 @@ def grid(s: State, name: str, lo: float, hi: float, n: int | None = None,
     spec = AxisSpec(name, float(lo), float(hi), n, scale)
     replaced = s.spec(name) is not None
     specs = tuple(x for x in s.specs if x.name != name) + (spec,)
-    return Outcome(replace(s, specs=specs), Change(f"grid {_verb(replaced)}: {ax.describe()}"))
+    sized = s.sized
+    if sized is not None:
+        sized = replace(sized, names=sized.names - {name})
+    return Outcome(replace(s, specs=specs, sized=sized),
+                   Change(f"grid {_verb(replaced)}: {ax.describe()}"))
 
 
 def rule(s: State, name: str, setting: float | None = None) -> Outcome:

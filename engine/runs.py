@@ -53,6 +53,7 @@ class Sizing:
     grid: Grid
     notes: tuple[str, ...]
     auto: tuple[AxisSpec, ...]      # the specs `grid auto` found, if it ran
+    stale: tuple[str, ...] = ()     # axes sized for an earlier model or data, sized again
 
 
 # ---------------------------------------------------------------------------
@@ -88,12 +89,20 @@ def check_count(s: State, compiled: Compiled) -> None:
 
 
 def sizing(s: State, compiled: Compiled) -> Sizing:
-    """The grid to compute on: the user's axes, and `grid auto` for the rest."""
+    """The grid to compute on: the user's axes, and `grid auto` for the rest and for
+    the axes quadrat sized for a model or data set that has changed since."""
     notes = []
-    have = {x.name for x in s.specs}
+    stale = s.stale_specs
+    have = {x.name for x in s.specs if x.name not in stale}
     missing = [p.name for p in compiled.params if p.name not in have]
-    specs = list(s.specs)
+    specs = [x for x in s.specs if x.name not in stale]
     auto_used: tuple[AxisSpec, ...] = ()
+    if stale:
+        what = " and ".join(w for w, changed in (
+            ("model", s.sized.content[0] != s.model.revision),
+            ("data", s.sized.content[1] != s.data.revision)) if changed)
+        notes.append(f"the {what} changed since {s.sized.by} sized the grid of "
+                     + ", ".join(f"`{m}`" for m in stale) + ": sized again")
     if missing:
         ag = auto_grid(compiled)
         auto_used = ag.specs
@@ -103,7 +112,8 @@ def sizing(s: State, compiled: Compiled) -> Sizing:
         told = [m for m in ag.message.split("; ") if m and "has heavy tails" not in m]
         if told:
             notes.append("; ".join(told))
-    return Sizing(build_grid(compiled.params, specs, rule=s.rule), tuple(notes), auto_used)
+    return Sizing(build_grid(compiled.params, specs, rule=s.rule), tuple(notes), auto_used,
+                  stale)
 
 
 def check_cost(compiled: Compiled, grid: Grid, *, budget_seconds: float,
@@ -225,6 +235,9 @@ def _compute_on(s: State, compiled: Compiled, size: Sizing, *, budget_seconds: f
     notes = size.notes
     notes = notes + zero_notes(post)
     notes = notes + tuple(compiled.improper)
+    if size.stale:
+        # the stale axes are left to `grid auto`, as axes never set are
+        s = replace(s, specs=tuple(x for x in s.specs if x.name not in size.stale), sized=None)
     return Outcome(s.with_posterior(post, steps=()),
                    ComputeReport(grid.size, post.seconds, post.log_evidence, notes,
                                  warnings(post), post.diagnostics.unresolved))
@@ -363,7 +376,8 @@ def grid_auto(s: State) -> Outcome:
         notes.append(ag.message)
     grid = build_grid(compiled.params, ag.specs, rule=s.rule)
     lines = "; ".join(a.describe() for a in grid.axes)
-    return Outcome(replace(s, specs=ag.specs),
+    s = replace(s, specs=ag.specs)
+    return Outcome(replace(s, sized=s.sized_by("`grid auto`")),
                    GridAuto(Change(f"grid auto: {lines} ({grid.size:,} points)", tuple(notes)),
                             ag))
 
@@ -396,7 +410,8 @@ def refine(s: State, axis: str | None = None, until: float | None = None, *,
                            budget_seconds=budget_seconds, progress=progress)
     new = res.posterior
     steps = (s.steps if s.steps else res.steps[:1]) + res.steps[1:]
-    return Outcome(s.with_posterior(new, specs=_specs_of(new), steps=steps),
+    s = replace(s, specs=_specs_of(new))
+    return Outcome(s.with_posterior(new, sized=s.sized_by("`refine`"), steps=steps),
                    RefineReport(res.steps, res.converged, res.message, first.result.notes,
                                 warnings(new)))
 
@@ -428,7 +443,8 @@ def zoom(s: State, mass: float = 1 - 1e-9, *, budget_seconds: float,
         notes = notes + ("the zoomed grid held mass at its edge; widened at the "
                          + ", ".join(sorted(set(widened))),)
     lines = "; ".join(a.describe() for a in grid.axes)
-    return Outcome(s.with_posterior(new, specs=specs, steps=()),
+    s = replace(s, specs=specs)
+    return Outcome(s.with_posterior(new, sized=s.sized_by("`zoom`"), steps=()),
                    ComputeReport(grid.size, new.seconds, new.log_evidence,
                                  notes + (f"zoomed to {mass:.10g} of the mass: {lines}",),
                                  warnings(new), new.diagnostics.unresolved))
@@ -467,7 +483,13 @@ def append(s: State, data: DataSet, message: str, *, budget_seconds: float,
         notes = (f"the mass moved toward an edge of the grid ({edge:.2g}); grid re-sized: "
                  f"{lines}",)
         specs = ag.specs
-    ns = ns.with_posterior(new_post, specs=specs)
+    ns = replace(ns, specs=specs)
+    if specs is not s.specs:
+        ns = replace(ns, sized=ns.sized_by("an append"))
+    elif s.sized is not None and s.sized.content == s.content:
+        # the grid was checked against the new rows above: still sized for them
+        ns = replace(ns, sized=replace(s.sized, content=ns.content))
+    ns = ns.with_posterior(new_post)
     ns.remember(full)
     return Outcome(ns, Change(message, notes + warnings(new_post)))
 

@@ -26,6 +26,8 @@ from .results import Kept
 
 #: How many earlier states `undo` can go back to.
 UNDO_DEPTH = 200
+#: Predictive distributions kept per memo (each a prediction under one posterior).
+PREDICTIVES_KEPT = 8
 #: Compiled models kept per memo (the state and a what-if layer's base each need one).
 MEMO_SIZE = 4
 
@@ -42,6 +44,17 @@ class Basis:
 
 
 @dataclass(frozen=True)
+class Sized:
+    """Axes that quadrat sized (`grid auto`, `refine`, `zoom`, an append), not the user,
+    and the model and data they were sized for: once either changes they are stale,
+    and the next compute sizes them again."""
+
+    names: frozenset[str]
+    content: tuple[int, int]      # (model revision, data revision)
+    by: str                       # what sized them, as the user would name it
+
+
+@dataclass(frozen=True)
 class Prediction:
     """A predicted new observation ``NAME ~ FAMILY(args)``."""
 
@@ -52,7 +65,9 @@ class Prediction:
 
 
 class Memo:
-    """Compiled models by (model revision, data revision), the most recent few.
+    """Compiled models by (model revision, data revision), and posterior predictive
+    distributions by (the basis of their posterior, the prediction), the most recent
+    few of each.
 
     A cache, not state: states derived from one another share one memo, and what
     it holds is a pure function of its key.
@@ -61,6 +76,18 @@ class Memo:
     def __init__(self, size: int = MEMO_SIZE):
         self._size = size
         self._items: OrderedDict[tuple[int, int], Compiled] = OrderedDict()
+        self._predictives: OrderedDict[tuple, object] = OrderedDict()
+
+    def predictive(self, key: tuple, make):
+        """The predictive under `key` ((Basis, Prediction)), made by `make()` once."""
+        pv = self._predictives.get(key)
+        if pv is None:
+            pv = make()
+            self._predictives[key] = pv
+            while len(self._predictives) > PREDICTIVES_KEPT:
+                self._predictives.popitem(last=False)
+        self._predictives.move_to_end(key)
+        return pv
 
     def get(self, key: tuple[int, int]) -> Compiled | None:
         c = self._items.get(key)
@@ -87,6 +114,7 @@ class State:
     keeps: tuple[Kept, ...] = ()          # by name
     steps: tuple[RefineStep, ...] = ()    # refinement steps of the current posterior
     predictions: tuple[Prediction, ...] = ()   # by name
+    sized: Sized | None = None            # which specs quadrat sized, for what content
     memo: Memo = field(default_factory=Memo, compare=False, repr=False)
 
     # -- lookups --------------------------------------------------------------
@@ -101,6 +129,18 @@ class State:
             if p.name == name:
                 return p
         return None
+
+    def sized_by(self, by: str, names=None) -> Sized:
+        """A record that the axes `names` (default: every spec) were sized now by `by`."""
+        names = frozenset(x.name for x in self.specs) if names is None else frozenset(names)
+        return Sized(names, self.content, by)
+
+    @property
+    def stale_specs(self) -> tuple[str, ...]:
+        """The axes sized for a model or data set that has since changed."""
+        if self.sized is None or self.sized.content == self.content:
+            return ()
+        return tuple(x.name for x in self.specs if x.name in self.sized.names)
 
     @property
     def content(self) -> tuple[int, int]:
