@@ -57,11 +57,15 @@ def _predicted_itself(s: State, e: sp.Basic) -> Prediction | None:
 
 def _predictive(s: State, pr: Prediction, budget_seconds: float
                 ) -> tuple[Outcome, Predictive]:
-    """The fresh posterior's outcome, and the predictive of `pr` under it."""
+    """The fresh posterior's outcome, and the predictive of `pr` under it: made once
+    per prediction and posterior (kept on the memo, keyed on the posterior's basis of
+    revisions), then shared by every question on it."""
     framing.refuse(s, "a prediction")
     got = fresh(s, budget_seconds=budget_seconds)
     post = got.result.posterior
-    return got, predictive(post, pr.name, pr.family, pr.args, got.state.model)
+    st = got.state
+    return got, st.memo.predictive(
+        (st.basis, pr), lambda: predictive(post, pr.name, pr.family, pr.args, st.model))
 
 
 def unresolved(post) -> str:
