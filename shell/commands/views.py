@@ -352,7 +352,7 @@ def plot_derived(app, line: Line, words, p) -> None:
     p.block(text)
 
 
-def plot_predicted(app, name: str) -> None:
+def plot_predicted(app, name: str, p) -> None:
     """The predictive pmf or density of a new observation named by `predict`."""
     from .. import plots
 
