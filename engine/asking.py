@@ -145,8 +145,19 @@ def interval(s: State, name: str, level: float = 0.95, kind: str = "central", *,
     if len(iv.pieces) > 1:
         notes = (f"the {kind} region has {len(iv.pieces)} pieces: " + ", ".join(
             f"[{a:.6g}, {b:.6g}]" for a, b in iv.pieces),)
+    p = s.model.param(name)
+    lo_err, hi_err = iv.lo.error, iv.hi.error
+    # an HPD region that runs to an edge of the domain ends there exactly
+    if kind == "hpd" and iv.lo.value == p.lo:
+        lo_err = None
+        notes += (f"the region starts at the lower edge of the domain of `{name}`, where its "
+                  "density is highest",)
+    if kind == "hpd" and iv.hi.value == p.hi:
+        hi_err = None
+        notes += (f"the region ends at the upper edge of the domain of `{name}`, where its "
+                  "density is highest",)
     return _answer(got, "interval", f"{level:g} {kind} interval of {name}",
-                   Range(iv.lo.value, iv.hi.value, iv.lo.error, iv.hi.error, level, kind,
+                   Range(iv.lo.value, iv.hi.value, lo_err, hi_err, level, kind,
                          tuple(iv.pieces)), notes)
 
 

@@ -44,6 +44,7 @@ def test_hpd_with_the_density_peaking_at_zero_is_one_sided(sh):
               "likelihood y ~ binomial(n, p)", "compute", "interval p 0.95 hpd")
     lo, hi = value(out, "interval p 0.95 hpd")
     assert lo == 0
+    assert "e-316" not in out and "starts at the lower edge of the domain of `p`" in out
     assert hi == pytest.approx(st.beta(1, 21).ppf(0.95), rel=1e-6)
     r = sh.app.ws.interval("p", 0.95, "hpd").detail
     assert r.lo == 0.0 and r.hi == pytest.approx(st.beta(1, 21).ppf(0.95), rel=1e-7)
