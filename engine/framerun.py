@@ -358,21 +358,7 @@ def _start(target: _Counted) -> _Start:
 def _modes(target: _Counted) -> list[refine.LocalMode]:
     """Local modes from several starts, best first (as `refine.find_modes`, on the
     counting target)."""
-    rng = np.random.default_rng(0)
-    found = [m for m in (refine._climb(target, x0) for x0 in refine._starts(target, rng, 8))
-             if m is not None]
-    if not found:
-        raise ComputeError("no mode found: the posterior is zero at every point the optimiser "
-                           "reached")
-    found.sort(key=lambda m: -m.log_density)
-    modes: list[refine.LocalMode] = []
-    for m in found:
-        if m.log_density < found[0].log_density - 40:
-            continue
-        if any(np.all(np.abs(m.u - k.u) < 2 * np.maximum(m.sd, k.sd)) for k in modes):
-            continue
-        modes.append(m)
-    return modes
+    return refine.modes_of(target, starts=8, seed=0)
 
 
 @dataclass(frozen=True)

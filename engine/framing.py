@@ -26,7 +26,7 @@ from . import framerun
 from .errors import ComputeError, GridError, QuadratError
 from .framerun import NodePosterior, Probe, RuleChoice, Targets, compute as compute_frame
 from .plan import format_count, format_duration, machine_memory
-from .refine import RefineStep
+from .refine import RefineStep, relative_changes
 from .results import ComputeReport, Fresh, RefineReport, RuleRow
 from .rule_cost import rule_cost
 from .sparse import SPARSE_MAX_DIMS, sparse_points
@@ -217,18 +217,8 @@ def _tracked(post: NodePosterior) -> dict[str, float]:
 
 def _changes(old: dict[str, float], new: dict[str, float], post: NodePosterior
              ) -> dict[str, float]:
-    """As `refine.changes`: the log evidence by its absolute change, the rest relative
-    to the larger of the value's size and the parameter's sd."""
-    out = {}
-    for k, v in new.items():
-        if k not in old or not (math.isfinite(v) and math.isfinite(old[k])):
-            continue
-        d = abs(v - old[k])
-        if k.startswith("log "):
-            out[k] = d
-        else:
-            out[k] = d / max(abs(v), post.sds[k.split(" ", 1)[1]].value, 1e-300)
-    return out
+    """As `refine.changes`, with the sds of the node posterior."""
+    return relative_changes(old, new, lambda name: post.sds[name].value)
 
 
 def _step(k: int, post: NodePosterior, before: dict[str, float] | None) -> RefineStep:

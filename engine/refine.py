@@ -12,7 +12,7 @@ import math
 import time
 import warnings
 from dataclasses import dataclass, field, replace
-from typing import Sequence
+from typing import Callable, Sequence
 
 import numpy as np
 from scipy import optimize
@@ -207,6 +207,12 @@ def _find_modes(compiled: Compiled, fixed: dict[str, float], *, starts: int, see
     target = _Target(compiled, fixed)
     if not target.cont:
         return []
+    return modes_of(target, starts=starts, seed=seed)
+
+
+def modes_of(target: _Target, *, starts: int = 8, seed: int = 0) -> list[LocalMode]:
+    """Local modes of `target` climbed from `starts` seeded starts, best first, merged
+    and pruned as `find_modes` says."""
     rng = np.random.default_rng(seed)
     found = [m for m in (_climb(target, x0) for x0 in _starts(target, rng, starts))
              if m is not None]
@@ -773,6 +779,13 @@ def changes(old: dict[str, float], new: dict[str, float], post: Posterior) -> di
     """Relative changes: log evidence by its absolute change (a relative change of the
     evidence); means, sds and interval ends relative to the larger of the value's
     size and the parameter's sd, so that a value near 0 is judged by the spread."""
+    return relative_changes(old, new, lambda name: post.marginals[name].sd
+                            if name in post.marginals else 0.0)
+
+
+def relative_changes(old: dict[str, float], new: dict[str, float],
+                     sd_of: Callable[[str], float]) -> dict[str, float]:
+    """`changes` with the parameter's sd read by `sd_of(name)` (any posterior kind)."""
     out = {}
     for k, v in new.items():
         if k not in old or not (math.isfinite(v) and math.isfinite(old[k])):
@@ -781,9 +794,7 @@ def changes(old: dict[str, float], new: dict[str, float], post: Posterior) -> di
         if k.startswith("log "):
             out[k] = d
             continue
-        name = k.split(" ", 1)[1]
-        sd = post.marginals[name].sd if name in post.marginals else 0.0
-        out[k] = d / max(abs(v), sd, 1e-300)
+        out[k] = d / max(abs(v), sd_of(k.split(" ", 1)[1]), 1e-300)
     return out
 
 
