@@ -18,7 +18,7 @@ from . import derived, framemarg, framing, plan, questions, runs
 from .edits import future_rows
 from .errors import ComputeError
 from .expr import parse
-from .posterior import Estimate, Interval
+from .posterior import Estimate, Interval, walk
 from .predict import Predictive, predictive, sample_size
 from .refine import axis_count
 from .results import (Answer, Joint, Needed, NoMoment, Number, Point, Predicted, Range,
@@ -450,7 +450,7 @@ def joint(s: State, a: str, b: str, *, budget_seconds: float) -> Outcome:
             f"{plan.format_count(post.grid.size)} points, and another pass would take "
             f"about {plan.format_duration(post.seconds)}: use fewer points")
     mass = np.zeros(na * nb)
-    for idx, _theta, ws in questions.walk(post):
+    for idx, _theta, ws in walk(post):
         mass += np.bincount(idx[i] * nb + idx[j], weights=ws[0], minlength=na * nb)
     mass = mass.reshape(na, nb)
     return Outcome(got.state, Joint(mass / mass.sum(), post, notes))

@@ -16,7 +16,7 @@ import numpy as np
 
 from .errors import ComputeError
 from .model import ParamFunction
-from .posterior import BLOCK, Posterior, _block_theta, evaluate_block
+from .posterior import Posterior, walk
 
 #: Posterior mass on which an expression may be infinite and its mean still be
 #: given: a value beyond 1e308 on more would outweigh the rest.
@@ -77,8 +77,8 @@ def scan(post: Posterior, fn: ParamFunction) -> NonFinite:
     undefined = infinite = 0.0
     isolated = 0
     where = pole = None
-    for b in _fine_blocks(post):
-        w = b.weights
+    for b in walk(post, coarse=False):
+        w = b.weights[0]
         v = np.broadcast_to(np.asarray(fn(b.theta), float), w.shape)
         bad = (w > 0) & ~np.isfinite(v)
         if not bad.any():
@@ -132,28 +132,3 @@ def check(post: Posterior, nf: NonFinite, text: str, allowed: float, *, what: st
                         "undefined points left out, infinite ones ordered as +-inf"
                         if what == "quantile" else "left out"))
 
-
-
-
-@dataclass(frozen=True)
-class _Block:
-    idx: tuple
-    theta: list
-    weights: np.ndarray
-
-
-def _fine_blocks(post: Posterior):
-    """The fine grid in blocks, with the normalised posterior weight of each node."""
-    grid = post.grid
-    for start, stop in grid.blocks(BLOCK):
-        idx = grid.indices(start, stop)
-        theta = _block_theta(grid, idx)
-        if post.logp is not None:
-            lp = post.logp[start:stop]
-        else:
-            lp = evaluate_block(post.compiled, theta)
-            lp[np.isnan(lp)] = -np.inf
-        lw = np.zeros(stop - start)
-        for a, i in zip(grid.axes, idx):
-            lw += a.logw[i]
-        yield _Block(idx, theta, np.exp(lp + lw - post.log_mass[0]))

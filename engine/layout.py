@@ -24,7 +24,6 @@ the layout.
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass
 from typing import Callable, Sequence
 
@@ -32,7 +31,7 @@ import numpy as np
 import sympy as sp
 
 from .grid import Block, Grid
-from .model import Compiled, ParamFunction, ParamTerm, ReducedTerm, _lambdify
+from .model import Compiled, ParamTerm, ReducedTerm, _lambdify
 
 #: Leading sub-grids up to this many rows keep their row factors for the whole pass.
 ROW_TABLE_LIMIT = 1 << 20
@@ -56,13 +55,8 @@ class _Fn:
         return np.broadcast_to(np.asarray(out, float), (n,))
 
 
-class _Mask:
+class _Mask(_Fn):
     """A condition as a log-density piece: 0 where it holds, -inf where not."""
-
-    def __init__(self, fn: Callable, index: tuple[int, ...], stats: tuple[float, ...] = ()):
-        self.fn = fn
-        self.index = index
-        self.stats = stats
 
     def __call__(self, theta: Sequence[np.ndarray]) -> np.ndarray:
         n = theta[0].shape[0]

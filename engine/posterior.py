@@ -14,7 +14,7 @@ from __future__ import annotations
 import math
 import time
 from dataclasses import dataclass, field, replace
-from typing import Callable, Sequence
+from typing import Callable, Iterator, NamedTuple, Sequence
 
 import numpy as np
 from scipy import interpolate, optimize
@@ -1467,7 +1467,6 @@ def _resolution(compiled: Compiled, grid: Grid, marg: dict[str, Marginal],
             continue
         m = marg[a.name]
         top = np.sort(m.mass)[-2:]
-        h = float(np.median(a.spacing()))
         csd, ratio = _curvature_sd(compiled, grid, best, k)
         nodes = int(np.sum(top > 1e-3))
         if top.sum() > CELL_MASS:
@@ -1627,3 +1626,52 @@ def _tail(mass_end, g_end, g_in, u_end, u_in, uc) -> float:
         alpha = drop / math.log(d_end / d_in) - 1.0  # density ~ d^-(alpha+1)
         tail = max(tail, g_end * d_end / alpha) if alpha > 0 else 1.0
     return min(mass_end + tail, 1.0)
+
+
+# ---------------------------------------------------------------------------
+# walking a computed posterior
+
+class WeightedBlock(NamedTuple):
+    """One block of a computed posterior's grid.
+
+    Attributes
+    ----------
+    idx : tuple of ndarray
+        Per axis, the node index of each point.
+    theta : list of ndarray
+        Per parameter, the value at each point.
+    weights : list of ndarray
+        ``weights[k]``: the normalised posterior weight of each point on level k
+        (0 the fine grid), zero where a coarse level has no node.
+    """
+
+    idx: tuple
+    theta: list
+    weights: list
+
+
+def walk(post: Posterior, *, block: int = BLOCK, coarse: bool = True
+         ) -> Iterator[WeightedBlock]:
+    """The grid of `post` in blocks, with the posterior weights of every level (of the
+    fine grid only, where `coarse` is false)."""
+    grid = post.grid
+    levels = len(post.coarse_marginals) if coarse else 0
+    for start, stop in grid.blocks(block):
+        idx = grid.indices(start, stop)
+        theta = _block_theta(grid, idx)
+        if post.logp is not None:
+            lp = post.logp[start:stop]
+        else:
+            lp = evaluate_block(post.compiled, theta)
+            lp[np.isnan(lp)] = -np.inf
+        lw = np.zeros(stop - start)
+        for a, i in zip(grid.axes, idx):
+            lw += a.logw[i]
+        ws = [np.exp(lp + lw - post.log_mass[0])]
+        for lev in range(levels):
+            lwc = np.zeros(stop - start)
+            for a, i in zip(grid.axes, idx):
+                lwc += a.coarse[lev][i]
+            with np.errstate(invalid="ignore"):
+                ws.append(np.where(np.isfinite(lwc), np.exp(lp + lwc - post.log_mass[lev + 1]), 0.0))
+        yield WeightedBlock(idx, theta, ws)

@@ -25,8 +25,7 @@ from .errors import ComputeError, ModelError
 from .grid import Grid
 from .model import (Likelihood, Model, ParamFunction, ReducedTerm, RowTerm, compile_model,
                     expand_lets, param_function)
-from .posterior import Marginal, Posterior
-from .questions import walk
+from .posterior import Marginal, Posterior, walk
 
 #: The predictive mixes over the grid points holding all but this much mass.
 MIX_TAIL = 1e-13

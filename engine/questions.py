@@ -15,7 +15,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from typing import Iterator, NamedTuple, Sequence
+from typing import Sequence
 
 import numpy as np
 import sympy as sp
@@ -24,54 +24,7 @@ from scipy import optimize
 from .errors import ComputeError, ModelError
 from .model import ParamFunction, expand_lets, param_function
 from . import finite, regions
-from .posterior import BLOCK, Estimate, Posterior, _block_theta, combine, evaluate_block
-
-
-# ---------------------------------------------------------------------------
-# walking a computed posterior
-
-class WeightedBlock(NamedTuple):
-    """One block of a computed posterior's grid.
-
-    Attributes
-    ----------
-    idx : tuple of ndarray
-        Per axis, the node index of each point.
-    theta : list of ndarray
-        Per parameter, the value at each point.
-    weights : list of ndarray
-        ``weights[k]``: the normalised posterior weight of each point on level k
-        (0 the fine grid), zero where a coarse level has no node.
-    """
-
-    idx: tuple
-    theta: list
-    weights: list
-
-
-def walk(post: Posterior, *, block: int = BLOCK) -> Iterator[WeightedBlock]:
-    """The grid of `post` in blocks, with the posterior weights of every level."""
-    grid = post.grid
-    levels = len(post.coarse_marginals)
-    for start, stop in grid.blocks(block):
-        idx = grid.indices(start, stop)
-        theta = _block_theta(grid, idx)
-        if post.logp is not None:
-            lp = post.logp[start:stop]
-        else:
-            lp = evaluate_block(post.compiled, theta)
-            lp[np.isnan(lp)] = -np.inf
-        lw = np.zeros(stop - start)
-        for a, i in zip(grid.axes, idx):
-            lw += a.logw[i]
-        ws = [np.exp(lp + lw - post.log_mass[0])]
-        for lev in range(levels):
-            lwc = np.zeros(stop - start)
-            for a, i in zip(grid.axes, idx):
-                lwc += a.coarse[lev][i]
-            with np.errstate(invalid="ignore"):
-                ws.append(np.where(np.isfinite(lwc), np.exp(lp + lwc - post.log_mass[lev + 1]), 0.0))
-        yield WeightedBlock(idx, theta, ws)
+from .posterior import Estimate, Posterior, combine, evaluate_block, walk
 
 
 @dataclass(frozen=True)

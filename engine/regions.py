@@ -22,6 +22,7 @@ from __future__ import annotations
 import itertools
 import math
 from dataclasses import dataclass
+from typing import NamedTuple
 
 import numpy as np
 import sympy as sp
@@ -664,6 +665,30 @@ class _Shifted:
         return self.base(theta) - self.x
 
 
+class _Prepared(NamedTuple):
+    """The lines of one level along one axis, their cross weights, their total
+    weight and the expression at their nodes (count x n_k)."""
+
+    lines: _Lines
+    cross: _CrossWeights
+    total: float
+    g: np.ndarray
+
+
+def _prepare_lines(post: Posterior, k: int, lev: int, base: ParamFunction
+                   ) -> _Prepared | None:
+    lines = _level_lines(post, k, lev)
+    if lines is None:
+        return None
+    cross = _cross_weights(post, lines, [], [], lev)
+    total = float(np.dot(cross.full_factor, lines.line.total(lines.C)))
+    rows = np.repeat(np.arange(lines.count), lines.n_k)
+    kv = np.tile(lines.axis.values[lines.sel[k]], lines.count)
+    g = np.broadcast_to(np.asarray(base(lines.theta(rows, kv)), float),
+                        rows.shape).reshape(lines.count, lines.n_k)
+    return _Prepared(lines, cross, total, g)
+
+
 def region_cdf(post: Posterior, expr: sp.Expr):
     """A function ``cdf(x, level)`` = P(expr <= x) by line integration, or None when
     the expression or the grid is outside what the method handles."""
@@ -682,22 +707,11 @@ def region_cdf(post: Posterior, expr: sp.Expr):
     if plan is None:
         return None
 
-    cache: dict[int, tuple | None] = {}
+    cache: dict[int, _Prepared | None] = {}
 
-    def prepared(lev: int):
-        # the lines of a level, their weights and the expression at their nodes, once
+    def prepared(lev: int) -> _Prepared | None:
         if lev not in cache:
-            lines = _level_lines(post, plan.axis, lev)
-            if lines is None:
-                cache[lev] = None
-            else:
-                cross = _cross_weights(post, lines, [], [], lev)
-                total = float(np.dot(cross.full_factor, lines.line.total(lines.C)))
-                rows = np.repeat(np.arange(lines.count), lines.n_k)
-                kv = np.tile(lines.axis.values[lines.sel[plan.axis]], lines.count)
-                g = np.broadcast_to(np.asarray(base(lines.theta(rows, kv)), float),
-                                    rows.shape).reshape(lines.count, lines.n_k)
-                cache[lev] = (lines, cross, total, g)
+            cache[lev] = _prepare_lines(post, plan.axis, lev, base)
         return cache[lev]
 
     def cdf(x: float, lev: int) -> float | None:
@@ -786,21 +800,11 @@ def region_density(post: Posterior, expr: sp.Expr):
     if not cont or not all(_qualifies(axes[k]) for k in cont):
         return None
     base = param_function(expr, params)
-    cache: dict[tuple[int, int], tuple] = {}
+    cache: dict[tuple[int, int], _Prepared | None] = {}
 
-    def prepared(k: int, lev: int):
+    def prepared(k: int, lev: int) -> _Prepared | None:
         if (k, lev) not in cache:
-            lines = _level_lines(post, k, lev)
-            if lines is None:
-                cache[k, lev] = None
-            else:
-                cross = _cross_weights(post, lines, [], [], lev)
-                total = float(np.dot(cross.full_factor, lines.line.total(lines.C)))
-                rows = np.repeat(np.arange(lines.count), lines.n_k)
-                kv = np.tile(lines.axis.values[lines.sel[k]], lines.count)
-                g = np.broadcast_to(np.asarray(base(lines.theta(rows, kv)), float),
-                                    rows.shape).reshape(lines.count, lines.n_k)
-                cache[k, lev] = (lines, cross, total, g)
+            cache[k, lev] = _prepare_lines(post, k, lev, base)
         return cache[k, lev]
 
     def slopes(lines: _Lines, rows: np.ndarray, ur: np.ndarray, lev: int) -> dict:

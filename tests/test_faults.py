@@ -138,13 +138,15 @@ def test_ctrl_c_during_compute_leaves_the_state_as_before(term):
 
 
 def test_ctrl_c_during_refine_leaves_the_state_as_before(term):
-    term.send(*SMALL[:-2], "grid a -2 5 2001", "grid b -5 5 2001", "compute", "mean a")
+    # the faster pass finishes a 4001 x 4001 step in about a second, before the progress
+    # bar shows; so start at 4001 x 4001 and interrupt the 8001 x 8001 step
+    term.send(*SMALL[:-2], "grid a -2 5 4001", "grid b -5 5 4001", "compute", "mean a")
     before = _mean(term)
-    term.send("refine")   # the next step has 4001 x 4001 points
+    term.send("refine")   # the next step has 8001 x 8001 points
     term.interrupt_when_busy()
     term.expect("cancelled: the state is as it was before `refine`")
     term.send("show grid", "mean a")
-    term.expect(r"the posterior \(current\) was computed on 4,004,001 points")
+    term.expect(r"the posterior \(current\) was computed on 16,008,001 points")
     assert _mean(term) == before
 
 
