@@ -327,8 +327,48 @@ def rule(s: State, name: str, setting: float | None = None) -> Outcome:
 
 
 def reset(s: State) -> Outcome:
-    return Outcome(State(), Change("reset: model, data, grid and posterior cleared (`undo` "
-                                   "brings them back)"))
+    """An empty state; the change names everything it drops."""
+    return Outcome(State(), Change(reset_text(s)))
+
+
+def is_empty(s: State) -> bool:
+    """Whether `s` holds nothing that `reset` would drop."""
+    m = s.model
+    return not (m.params or m.priors or m.likelihoods or m.lets or s.data.names or s.specs
+                or s.posterior is not None or s.predictions or s.keeps)
+
+
+def _n(k: int, word: str) -> str:
+    return f"{k} {word}{'s' if k != 1 else ''}"
+
+
+def reset_text(s: State) -> str:
+    """What `reset` drops from state `s`, in one line."""
+    m = s.model
+    parts = []
+    if m.params:
+        parts.append(_n(len(m.params), "parameter") + " (" +
+                     ", ".join(f"`{p.name}`" for p in m.params) + ")")
+    if m.priors:
+        parts.append(_n(len(m.priors), "prior"))
+    if m.likelihoods:
+        parts.append(_n(len(m.likelihoods), "likelihood"))
+    if m.lets:
+        parts.append(_n(len(m.lets), "let"))
+    if s.data.names:
+        parts.append(_n(len(s.data.names), "data column"))
+    if s.specs:
+        parts.append(_n(len(s.specs), "grid"))
+    if s.posterior is not None:
+        parts.append("the posterior")
+    if s.predictions:
+        parts.append(_n(len(s.predictions), "prediction"))
+    if s.keeps:
+        parts.append(_n(len(s.keeps), "kept model") + " (" +
+                     ", ".join(f"`{k.name}`" for k in s.keeps) + ")")
+    if not parts:
+        return "reset: nothing to drop, the session was empty"
+    return "reset: dropped " + ", ".join(parts) + " (`undo` brings them back)"
 
 
 # ---------------------------------------------------------------------------

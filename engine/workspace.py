@@ -109,6 +109,11 @@ class Workspace:
     def in_whatif(self) -> bool:
         return self._layer is not None
 
+    @property
+    def empty(self) -> bool:
+        """Nothing declared, loaded, computed or kept: what `reset` leaves."""
+        return edits.is_empty(self.state)
+
     def status(self) -> Status:
         s = self.state
         post = s.posterior

@@ -214,6 +214,8 @@ class App:
     # -- the session log -----------------------------------------------------------
     def keep(self, kind: str, line: Line, before: State, reply: Reply) -> None:
         text = line.text
+        if not reply.logged:
+            return
         if kind == "change":
             self.log.append(Entry(text, kind, before, reply.shown, reply.data_file))
         elif kind == "question":

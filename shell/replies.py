@@ -53,9 +53,12 @@ class Reply:
     data_file : DataFile or None
     check_of : str or None
         For `check`: the question it checked (to fold it into that question).
+    logged : bool
+        Whether the session log keeps the command (a change that only listed: no).
     """
 
     shown: tuple[Shown, ...] = ()
     status: str = "ok"
     data_file: DataFile | None = None
     check_of: str | None = None
+    logged: bool = True     # False: the command only looked (`keep` alone lists)

@@ -230,11 +230,13 @@ def verify_data(path: str, checks: list[DataCheck]) -> list[DataProblem]:
     return problems
 
 
-def replay(app, path: str, *, shown: str | None = None, allow_changed_data: bool = False):
+def replay(app, path: str, *, shown: str | None = None, allow_changed_data: bool = False,
+           first=None):
     """Replay session file `path` through `app`'s one-command path.
 
     Returns the `Tally` of the run. Raises `ShellError` (before running anything)
-    when a data file changed, unless allowed.
+    when a data file changed, unless allowed. `first`, if given, is called once the
+    file is read and checked, before its first line.
     """
     shown = shown or path
     full = os.path.abspath(app.ws.resolve(path))
@@ -255,6 +257,8 @@ def replay(app, path: str, *, shown: str | None = None, allow_changed_data: bool
                          f"--allow-changed-data to go on{more}")
     for p in problems:
         app.printer.warning(f"`{shown}`: {p.message}; going on as told")
+    if first is not None:
+        first()     # what comes before the first line (a fresh workspace), once all is checked
     name = shown
     with Replaying(app, real, os.path.dirname(full)) as frame:
         tally = app.run_lines(lines, lambda i: f"{name} line {i}")

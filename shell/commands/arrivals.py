@@ -17,7 +17,7 @@ from engine.results import Answer, SampleSizeOptions
 from .. import render as R
 from ..layout import Table
 from ..registry import NOTHING, Slot, command
-from ..replies import Asked, Shown
+from ..replies import Asked, Reply, Shown
 from ..words import Line, Segment, ShellError, Word, formula_at, fraction, number, whole
 from .common import say
 from .model import _TILDE, split_at
@@ -295,16 +295,32 @@ question("samplesize", SAMPLESIZE_USAGE, ask=ask_samplesize, complete=_complete_
 # ---------------------------------------------------------------------------
 # keep and compare
 
-@command("keep", usage="keep NAME", kind="change", group="arrival",
+def list_keeps(app) -> Reply:
+    """`keep` alone: the kept models, one line each (nothing changes)."""
+    keeps = app.ws.keeps
+    if not keeps:
+        app.printer.line("no kept models; `keep NAME` keeps the current one")
+        return Reply(logged=False)
+    app.printer.line(f"{len(keeps)} kept model{'s' if len(keeps) != 1 else ''}:")
+    for k in keeps:
+        ev = k.log_evidence
+        evidence = ("no log evidence (improper prior on " + ", ".join(k.improper) + ")"
+                    if ev is None else f"log evidence {R.with_error(ev.value, ev.error)}")
+        app.printer.line(f"  {k.name}: {evidence} on {R.count(k.points)} points; data "
+                         f"{k.data_rows}")
+    return Reply(logged=False)
+
+
+@command("keep", usage="keep [NAME]", kind="change", group="arrival",
          complete=lambda words, text: Slot(kept=True) if len(words) == 1 else NOTHING,
          help="""Keeps the current model under NAME for `compare`: its log evidence (with
          its estimated error), the data it was fitted to, and cautions on priors much
          wider than the posterior. Computes the posterior first if it is out of date and
-         cheap. Keeping a name again replaces it.""")
+         cheap. Keeping a name again replaces it. `keep` alone lists the kept models.""")
 def keep(app, line: Line):
     w = line.words
     if len(w) < 2:
-        raise ShellError("`keep` needs a name, as in `keep wide`", line.end_column())
+        return list_keeps(app)
     if len(w) > 2:
         raise ShellError(f"unexpected `{w[2].text}`; usage: keep NAME", w[2].column)
     say(app, app.ws.keep(w[1].text))

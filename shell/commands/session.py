@@ -50,13 +50,19 @@ def save(app, line: Line):
 _ALLOW = ("--allow-changed-data", "allow-changed-data")
 
 
-@command("replay", usage="replay FILE.qd [--allow-changed-data]", group="session",
+REPLAY_USAGE = "replay FILE.qd [merge] [--allow-changed-data]"
+
+
+@command("replay", usage=REPLAY_USAGE, group="session",
          complete=lambda words, text: Slot(files=(".qd",)) if len(words) == 1
-         else Slot(words=(_ALLOW[0],)),
-         help="""Runs a session file, line by line, as if typed. First it checks the SHA-256 of
-         every data file in the file's header and refuses a file that changed, naming it,
-         unless `--allow-changed-data` is given. It stops at the first error, and then keeps
-         nothing of the file: the state is as before the replay. Every check
+         else Slot(words=("merge", _ALLOW[0])),
+         help="""Runs a session file, line by line, as if typed, in a fresh workspace: when
+         the session holds anything, it is set aside first as by `reset` (the line says what
+         is dropped; `undo` after the replay brings it back). `replay FILE.qd merge` runs the
+         file on top of the current model, data and keeps instead. First it checks the
+         SHA-256 of every data file in the file's header and refuses a file that changed,
+         naming it, unless `--allow-changed-data` is given. It stops at the first error, and
+         then keeps nothing of the file: the state is as before the replay. Every check
          that moved is reported with its old and new value. Relative paths in the file are
          read from the file's folder. A replayed file writes new files only: its `save` and
          `export` never replace a file that was there before the replay, this session's
@@ -65,16 +71,27 @@ _ALLOW = ("--allow-changed-data", "allow-changed-data")
 def replay(app, line: Line):
     w = line.words
     if len(w) < 2:
-        raise ShellError("`replay` needs a file name: replay FILE.qd", line.end_column())
-    allow = False
+        raise ShellError(f"`replay` needs a file name: {REPLAY_USAGE}", line.end_column())
+    allow = merge = False
     for x in w[2:]:
         if x.text in _ALLOW and not allow:
             allow = True
+        elif x.text == "merge" and not merge:
+            merge = True
         else:
-            raise ShellError(f"unexpected `{x.text}`; usage: replay FILE.qd "
-                             "[--allow-changed-data]", x.column)
+            raise ShellError(f"unexpected `{x.text}`; usage: {REPLAY_USAGE}", x.column)
     path = path_word(w[1])
-    tally = script.replay(app, path, allow_changed_data=allow)
+
+    def fresh():
+        if merge:
+            app.printer.note(f"replaying `{path}` on top of the current session (merge)")
+        elif not app.ws.empty:
+            app.printer.note(f"replaying `{path}` in a fresh workspace; `replay {path} merge` "
+                             "would add it to the current session")
+            if app.run("reset", app.current_where) != "ok":
+                raise ShellError("the session could not be set aside for the replay")
+
+    tally = script.replay(app, path, allow_changed_data=allow, first=fresh)
     report(app, path, tally, undone=True)
     if tally.errors:
         return Reply(status="error")  # the dispatcher puts the state back
