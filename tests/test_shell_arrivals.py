@@ -220,7 +220,7 @@ def test_ctrl_c_in_a_replay_that_opened_a_layer_drops_the_layer(model, tmp_path,
 
     monkeypatch.setitem(COMMANDS, "mean", real.__class__("mean", real.usage, real.help,
                                                          interrupted, real.kind))
-    assert model("replay w.qd") == "cancelled"
+    assert model("replay w.qd merge") == "cancelled"
     assert not model.app.ws.in_whatif and model.app.ws.state is before
 
 
@@ -360,7 +360,10 @@ def test_compare_bad(model):
     model.take()
     assert model.error("compare a improper").startswith(
         "error: `improper` has no evidence (")
-    assert model.error("keep") == "error: column 5: `keep` needs a name, as in `keep wide`"
+    assert model("keep") == "ok"   # alone, it lists the kept models
+    listed = model.take()[0].splitlines()
+    assert listed[0] == "2 kept models:" and listed[1].startswith("  a: log evidence ")
+    assert listed[2].startswith("  improper: no log evidence (improper prior on ")
 
 
 # ---------------------------------------------------------------------------

@@ -624,7 +624,7 @@ def test_ctrl_c_during_a_replay_leaves_the_state_and_session_as_before(model, tm
     monkeypatch.setitem(COMMANDS, "let", real.__class__("let", real.usage, real.help,
                                                         interrupted, real.kind))
     model.take()
-    assert model("replay more.qd") == "cancelled"
+    assert model("replay more.qd merge") == "cancelled"   # merge: the file uses `p`
     assert model.take()[1] == "cancelled: the state is as it was before `replay`\n"
     assert model.app.ws.state is before
     assert [e.text for e in model.app.log] == log
