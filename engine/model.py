@@ -1356,6 +1356,13 @@ class _CurvatureFns:
     values: tuple[np.ndarray, ...]
 
 
+def _drop_point_masses(expr: sp.Expr) -> sp.Expr:
+    """`expr` with DiracDelta terms (the derivative of a kink or a step) set to zero."""
+    if not expr.has(sp.DiracDelta):
+        return expr
+    return expr.replace(lambda e: isinstance(e, sp.DiracDelta), lambda e: sp.S.Zero)
+
+
 def _curvature_functions(symbolic: Sequence[SymbolicTerm], params, cont
                          ) -> list[_CurvatureFns] | None:
     """Compiled gradient and Hessian (upper triangle) of each symbolic term, or None
@@ -1372,6 +1379,10 @@ def _curvature_functions(symbolic: Sequence[SymbolicTerm], params, cont
             grads = [sp.diff(term.expr, x) for x in csyms]
             hess = [sp.diff(grads[i], csyms[j]) for i in range(len(csyms))
                     for j in range(i, len(csyms))]
+            # a kink (abs, sign, a step) differentiates to a point mass: zero almost
+            # everywhere, which is what a curvature at a point can use
+            grads = [_drop_point_masses(e) for e in grads]
+            hess = [_drop_point_masses(e) for e in hess]
             for e in grads + hess:
                 if e.has(sp.Derivative, sp.Subs):
                     return None

@@ -352,3 +352,35 @@ def test_samplesize_says_a_levelled_width_cannot_be_reached(sh):
     assert "one further observation is one row of `k` ~ binomial(100" in out
     text = open(os.path.join(sh.app.ws.base_dir, "ss.qd")).read()
     assert "check samplesize prev width 0.01 sims 20 max 4096 = -1, " in text
+
+
+# ---------------------------------------------------------------------------
+# kinks: a density with abs() (the laplace family) has a point mass in its second
+# derivative, which the curvature at a point must not trip over
+
+
+def _laplace_normal_reference(ys):
+    """log evidence and posterior mean of m for m ~ laplace(0, 1), y_i ~ normal(m, 1),
+    by scipy.integrate.quad on each side of the kink (an independent reference)."""
+    from scipy import integrate
+
+    def f(m):
+        return 0.5 * math.exp(-abs(m)) * np.prod(st.norm.pdf(ys, m, 1))
+
+    parts = [(-np.inf, 0), (0, np.inf)]
+    z = sum(integrate.quad(f, a, b, epsabs=0, epsrel=1e-12)[0] for a, b in parts)
+    m1 = sum(integrate.quad(lambda m: m * f(m), a, b, epsabs=0, epsrel=1e-12)[0]
+             for a, b in parts)
+    return math.log(z), m1 / z
+
+
+def test_a_laplace_prior_with_grid_auto_agrees_with_quadrature(sh):
+    ys = [0.3, 0.5]
+    out = run(sh, "param m real", "prior m ~ laplace(0, 1)", "data y = 0.3, 0.5",
+              "likelihood y ~ normal(m, 1)", "grid auto", "compute", "mean m", "evidence")
+    logz, mean = _laplace_normal_reference(ys)
+    for prefix, truth in (("mean m", mean), ("log evidence", logz)):
+        got = value(out, prefix)[0]
+        err = float(out.split(prefix + " = ")[1].split("(± ")[1].split(")")[0])
+        # within the stated error, or within the shown rounding where that is larger
+        assert abs(got - truth) <= err + 1e-4, (prefix, got, truth, err)
