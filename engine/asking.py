@@ -166,12 +166,19 @@ def _derived_interval(s: State, text: str, level: float, kind: str, *,
     """The interval of a let or an expression of the parameters."""
     e = _expr(s, text)
     _predicted_itself(s, e)
-    if kind != "central":
-        raise ComputeError(f"an HPD interval of a derived quantity such as `{text.strip()}` is "
-                           "not available yet; ask for the central one")
     got = fresh(s, budget_seconds=budget_seconds)
     notes: list[str] = []
-    lo, hi = derived.central(got.result.posterior, e, level, notes=notes)
+    if kind == "hpd":
+        iv = derived.hpd(got.result.posterior, e, level, text=text.strip(), notes=notes)
+        lo, hi = iv.lo, iv.hi
+        if iv.at_lowest:
+            notes.append(f"the region starts at the lowest value of `{text.strip()}`, where "
+                         "its density is highest")
+        if iv.at_highest:
+            notes.append(f"the region ends at the highest value of `{text.strip()}`, where "
+                         "its density is highest")
+    else:
+        lo, hi = derived.central(got.result.posterior, e, level, notes=notes)
     return _answer(got, "interval", f"{level:g} {kind} interval of {text.strip()}",
                    Range(lo.value, hi.value, lo.error, hi.error, level, kind,
                          ((lo.value, hi.value),)), tuple(notes))

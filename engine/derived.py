@@ -18,7 +18,7 @@ from scipy import optimize
 
 from .errors import ComputeError
 from . import questions, regions
-from .posterior import Marginal, Posterior
+from .posterior import Estimate, Marginal, Posterior
 
 # ---------------------------------------------------------------------------
 # the density of a derived quantity
@@ -146,3 +146,139 @@ def central(post: Posterior, expr: sp.Expr, level: float, *, notes: list | None 
 
 def finite_or_none(v: float) -> float | None:
     return v if math.isfinite(v) else None
+
+
+# ---------------------------------------------------------------------------
+# the HPD interval of a derived quantity
+
+@dataclass(frozen=True)
+class HpdInterval:
+    """The highest-density interval of a derived quantity.
+
+    Attributes
+    ----------
+    lo, hi : Estimate
+        Its ends, each with an error (the quantile's, plus how far the end moves
+        when the density used to balance the ends is read another way).
+    at_lowest, at_highest : bool
+        Whether the density is highest at that end of the quantity's range, so the
+        interval runs there (one-sided).
+    """
+
+    lo: "Estimate"
+    hi: "Estimate"
+    at_lowest: bool = False
+    at_highest: bool = False
+
+
+def _modes_on(x: np.ndarray, f: np.ndarray) -> list[float]:
+    """The local maxima of a density sampled on a mesh that stand clear of the dips
+    beside them (a dip below 80% of the lower peak), in increasing order."""
+    peaks = [i for i in range(len(f)) if f[i] > 0 and
+             (i == 0 or f[i] >= f[i - 1]) and (i == len(f) - 1 or f[i] > f[i + 1])]
+    kept = peaks[:1]
+    for i in peaks[1:]:
+        j = kept[-1]
+        dip = float(np.min(f[j:i + 1]))
+        if dip < 0.8 * min(f[i], f[j]):
+            kept.append(i)
+        elif f[i] > f[j]:
+            kept[-1] = i
+    return [float(x[i]) for i in kept]
+
+
+def hpd(post: Posterior, expr: sp.Expr, level: float, *, text: str | None = None,
+        notes: list | None = None) -> HpdInterval:
+    """The `level` highest-density interval of `expr`: the interval [q(a), q(a + level)]
+    whose ends have equal density, a found by solving that balance (a shortest
+    interval, which is the HPD region of a density with one mode). A density with
+    several modes is refused (its region is a union)."""
+    if not 0 < level < 1:
+        raise ComputeError(f"interval level must be between 0 and 1; got {level:g}")
+    text = text or str(expr)
+    cv = curve(post, expr, points=121, notes=notes)
+    modes = _modes_on(cv.x, cv.density)
+    if len(modes) > 1:
+        raise ComputeError(
+            f"the density of `{text}` has {len(modes)} modes (near "
+            + ", ".join(f"{m:.4g}" for m in modes)
+            + "): its HPD region is a union of pieces, not given for a derived quantity; "
+              f"ask for the central interval, or `plot {text}`")
+
+    def q(a: float):
+        return questions.quantile(post, expr, a)
+
+    def logf(x: float) -> float:
+        d = float(density(post, expr, np.array([x]))[0])
+        return math.log(d) if d > 0 else -math.inf
+
+    def balance(a: float) -> float:
+        return logf(q(a).value) - logf(q(a + level).value)
+
+    tiny = 1e-9
+    top = 1 - level
+    at_lowest = at_highest = False
+    b0, b1 = balance(tiny), balance(top - tiny)
+    if not (math.isfinite(b0) or math.isfinite(b1)):
+        raise ComputeError(f"the density of `{text}` cannot be read at its tails: no HPD "
+                           "interval; ask for the central one")
+    if b0 >= 0:
+        # the density is highest at the lowest values: the interval starts there
+        a, at_lowest = 0.0, True
+    elif b1 <= 0:
+        a, at_highest = top, True
+    else:
+        a = optimize.brentq(balance, tiny, top - tiny, xtol=1e-12, rtol=1e-12, maxiter=100)
+    lo = _lowest(post, expr) if at_lowest else q(a)
+    hi = _highest(post, expr) if at_highest else q(a + level)
+    # how well the ends balance: the density read from differences of quantiles
+    # against the one used, moved into an error of a and so of each end
+    extra = 0.0
+    if not (at_lowest or at_highest):
+        h = min(1e-4, a / 2, (top - a) / 2)
+        if h > 0:
+            fd = []
+            for p in (a, a + level):
+                w = q(p + h).value - q(p - h).value
+                fd.append(math.log(2 * h / w) if w > 0 else math.nan)
+            dlog = abs((fd[0] - fd[1]) - balance(a))
+            slope = abs(balance(min(a + h, top - tiny)) - balance(max(a - h, tiny))) / (2 * h)
+            if math.isfinite(dlog) and slope > 0:
+                extra = dlog / slope
+    def widen(e, p: float):
+        if e.error is None or not math.isfinite(e.error):
+            return e
+        f = math.exp(logf(e.value)) if math.isfinite(logf(e.value)) else 0.0
+        move = extra / f if f > 0 else 0.0
+        return Estimate(e.value, e.error + move, e.method)
+
+    return HpdInterval(lo if at_lowest else widen(lo, a), hi if at_highest else widen(hi, a + level),
+                       at_lowest, at_highest)
+
+
+def _end_value(post: Posterior, expr: sp.Expr, lowest: bool):
+    """The lowest (or highest) value of `expr` on the posterior's support: at the
+    domain's edge for a monotone function of one parameter, else its extreme over
+    the grid points that carry mass."""
+    ex = questions._compile(post, expr)
+    mono = questions._monotone_in_one(post, ex.expr)
+    if mono is not None:
+        p = next(p for p in post.compiled.params if p.name == mono.name)
+        edge = p.lo if (lowest == mono.rising) else p.hi
+        if edge is not None and math.isfinite(edge):
+            with np.errstate(all="ignore"):
+                v = float(mono.fn([np.array([float(edge)]) if r.name == mono.name
+                                   else np.array([0.0]) for r in post.compiled.params])[0])
+            if math.isfinite(v):
+                return Estimate(v, 0.0, "exact")
+    ranked = questions._ranked(post, ex.fn)
+    v = float(ranked.values[0] if lowest else ranked.values[-1])
+    return Estimate(v, None, "none")
+
+
+def _lowest(post, expr):
+    return _end_value(post, expr, True)
+
+
+def _highest(post, expr):
+    return _end_value(post, expr, False)

@@ -384,3 +384,84 @@ def test_a_laplace_prior_with_grid_auto_agrees_with_quadrature(sh):
         err = float(out.split(prefix + " = ")[1].split("(± ")[1].split(")")[0])
         # within the stated error, or within the shown rounding where that is larger
         assert abs(got - truth) <= err + 1e-4, (prefix, got, truth, err)
+
+
+# ---------------------------------------------------------------------------
+# HPD intervals of derived quantities
+
+
+def _hpd_reference(dist, level, guess):
+    """The HPD interval of a unimodal scipy distribution: the ends of equal density
+    holding `level` (scipy.optimize.fsolve on scipy.stats' logpdf and cdf)."""
+    from scipy import optimize
+
+    def eqs(v):
+        lo, hi = v
+        return [dist.logpdf(lo) - dist.logpdf(hi), dist.cdf(hi) - dist.cdf(lo) - level]
+
+    return optimize.fsolve(eqs, guess, xtol=1e-12)
+
+
+def _ends(out: str, prefix: str):
+    line = next(ln for ln in out.splitlines() if ln.startswith(prefix))
+    rhs = line.split(" = ", 1)[1]
+    vals = [float(x) for x in rhs.split("  (")[0].split(",")]
+    errs = rhs.split("  (", 1)[1].rstrip(")").split(", ")
+    return vals, [0.0 if e == "exact" else float(e.replace("± ", "")) for e in errs]
+
+
+def test_hpd_of_the_odds_of_a_beta_posterior_is_the_beta_prime_one(sh):
+    # p | y ~ beta(5, 17) (beta-binomial conjugacy, common practice), so the odds
+    # p / (1 - p) is beta prime(5, 17) (scipy.stats.betaprime)
+    out = run(sh, "digits 10", "param p unit", "prior p ~ beta(1, 1)", "data y = 4",
+              "data n = 20", "likelihood y ~ binomial(n, p)", "compute",
+              "let odds = p / (1 - p)", "interval odds 0.95 hpd")
+    ref = _hpd_reference(st.betaprime(5, 17), 0.95, [0.05, 0.6])
+    vals, errs = _ends(out, "interval odds 0.95 hpd")
+    for v, e, r in zip(vals, errs, ref):
+        assert abs(v - r) <= max(e, 1e-9), (v, r, e)
+        assert abs(v - r) < 1e-6
+    # and it is not the central interval, which is longer
+    central = st.betaprime(5, 17).ppf([0.025, 0.975])
+    assert vals[1] - vals[0] < central[1] - central[0] - 0.01
+
+
+def test_hpd_of_an_odds_whose_density_is_highest_at_zero_starts_there(sh):
+    # p | y ~ beta(1, 20): the odds is beta prime(1, 20), density highest at 0, so the
+    # HPD interval is [0, q(0.95)] (scipy.stats.betaprime.ppf)
+    out = run(sh, "digits 10", "param p unit", "prior p ~ beta(1, 1)", "data y = 0",
+              "data n = 19", "likelihood y ~ binomial(n, p)", "compute",
+              "interval p / (1 - p) 0.95 hpd")
+    vals, errs = _ends(out, "interval p / (1 - p) 0.95 hpd")
+    assert vals[0] == 0 and errs[0] == 0.0
+    q95 = st.betaprime(1, 20).ppf(0.95)
+    assert abs(vals[1] - q95) <= max(errs[1], 1e-9) and abs(vals[1] - q95) < 1e-6
+    assert "starts at the lowest value" in out
+
+
+def test_hpd_of_a_sum_of_two_rates_is_the_gamma_one(sh):
+    # a | x ~ gamma(2 + 8, 1 + 3), b | z ~ gamma(3 + 9, 1 + 3) (gamma-Poisson conjugacy,
+    # common practice), independent, the same rate: a + b ~ gamma(22, rate 4)
+    out = run(sh, "param a positive", "param b positive", "prior a ~ gamma(2, 1)",
+              "prior b ~ gamma(3, 1)", "data x = 3, 1, 4", "data z = 2, 2, 5",
+              "likelihood x ~ poisson(a)", "likelihood z ~ poisson(b)", "grid auto",
+              "compute", "interval a + b 0.9 hpd")
+    dist = st.gamma(22, scale=1 / 4)
+    ref = _hpd_reference(dist, 0.9, list(dist.ppf([0.05, 0.95])))
+    vals, errs = _ends(out, "interval a + b 0.9 hpd")
+    for v, e, r in zip(vals, errs, ref):
+        assert abs(v - r) <= e + 5e-6 * abs(r), (v, r, e)
+
+
+def test_hpd_of_a_derived_quantity_with_two_modes_is_refused_in_one_line(sh):
+    # a mixture of two separated normals as the prior (no data): the density of 2 * m
+    # has two modes, whose HPD region is a union
+    sh.take()
+    for line in ("param m real", "prior log 0.5 * exp(-(m - 3)^2 / 0.5) + exp(-(m + 3)^2 / 0.5)",
+                 "grid m -8 8 801", "compute"):
+        sh.app.run(line)
+    sh.take()
+    sh.app.run("interval 2 * m + m^3 / 100 0.95 hpd")
+    out, err = sh.take()
+    assert "2 modes" in out + err and "central" in out + err
+    assert "internal error" not in out + err
