@@ -386,7 +386,7 @@ def samplesize(s: State, name: str, width: float, options: SampleSizeOptions, *,
     got = fresh(s, budget_seconds=budget_seconds)
     res = sample_size(got.result.posterior, got.state.model, name, width, level=o.level,
                       max_n=o.max_n, using=use, data=got.state.data, sims=o.sims, seed=o.seed,
-                      kind=o.kind, progress=progress)
+                      kind=o.kind, progress=progress, budget_seconds=budget_seconds)
     return _answer(got, "samplesize", f"further observations for `{name}`",
                    Needed(res.n, res.width, res.mc_error, o.level, o.kind, res))
 

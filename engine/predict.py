@@ -335,6 +335,7 @@ class SampleSize:
     seed: int
     unit: str = ""              # what one further observation is, in words
     plateau: bool = False       # the expected width levels off above the target
+    stopped: bool = False       # the search stopped at the time budget
 
 
 @dataclass(frozen=True)
@@ -373,8 +374,8 @@ def future_likelihood(model: Model, data: DataSet, using: FutureRows | None) -> 
 def sample_size(post: Posterior, model: Model, name: str, width: float, *, level: float = 0.95,
                 max_n: int = 10_000, using: FutureRows | None = None,
                 data: DataSet | None = None, sims: int = 200, seed: int = 1,
-                kind: str = "central", progress: Callable[[int, int], None] | None = None
-                ) -> SampleSize:
+                kind: str = "central", progress: Callable[[int, int], None] | None = None,
+                budget_seconds: float | None = None) -> SampleSize:
     """Average length criterion by simulation (Joseph, Wolfson and du Berger, 1995).
 
     For each simulation a parameter value is drawn from the posterior (a grid
@@ -401,10 +402,19 @@ def sample_size(post: Posterior, model: Model, name: str, width: float, *, level
     if w0 <= width:
         return SampleSize(0, w0, 0.0, (), f"the {level:g} interval of `{name}` is already "
                           f"{w0:.4g} wide: no further observations are needed", sims, seed)
-    expected = _Expected(sim, level, kind, progress)
+    expected = _Expected(sim, level, kind, progress, width=width, max_n=max_n,
+                         budget_seconds=budget_seconds)
     unit = (f"one further observation is one row of `{future.column}` ~ "
             f"{future.family}({', '.join(str(a) for a in future.args)})")
-    found = _search(expected, width, max_n)
+    try:
+        found = _search(expected, width, max_n)
+    except _OverBudget as over:
+        last = expected.steps()[-1]
+        return SampleSize(None, last.width, last.mc_error, expected.steps(),
+                          f"stopped before n = {over.n:,}: that step would take about "
+                          f"{_secs(over.predicted)}, past the time budget ({_secs(over.budget)} "
+                          f"in all, {_secs(over.elapsed)} used); raise it with `budget SECONDS`, "
+                          "or use fewer `sims`", sims, seed, unit, stopped=True)
     if isinstance(found, _Plateau):
         return SampleSize(None, found.last.width, found.last.mc_error, expected.steps(),
                           f"cannot be reached: the expected width levels off near "
@@ -510,10 +520,14 @@ class _Simulation:
         self.LW = np.concatenate(lw)
         self.IDX = np.concatenate(idx_name)
 
-    def widths(self, n: int, level: float, kind: str) -> np.ndarray:
-        """The interval width after the first `n` future rows, per simulation."""
+    def widths(self, n: int, level: float, kind: str, *,
+               tick: Callable[[int], None] | None = None) -> np.ndarray:
+        """The interval width after the first `n` future rows, per simulation;
+        `tick(k)` after the k-th."""
         out = np.empty(self.sims)
         for s_ in range(self.sims):
+            if tick is not None:
+                tick(s_)
             with np.errstate(all="ignore"):
                 y = np.asarray(self.family.scipy(*[a[s_] for a in self.draw_args]).ppf(
                     self.U[s_, :n]), float)
@@ -526,22 +540,72 @@ class _Simulation:
         return out
 
 
+def _secs(x: float) -> str:
+    return f"{x:.2g} s" if x < 10 else f"{x:,.0f} s"
+
+
+class _OverBudget(Exception):
+    """The next step of the search would run past the time budget."""
+
+    def __init__(self, n: int, predicted: float, elapsed: float, budget: float):
+        super().__init__(n)
+        self.n, self.predicted, self.elapsed, self.budget = n, predicted, elapsed, budget
+
+
 class _Expected:
     """The expected width at ``n`` further rows with its Monte Carlo error, each
-    ``n`` simulated once; `steps` lists those tried."""
+    ``n`` simulated once; `steps` lists those tried.
 
-    def __init__(self, sim: _Simulation, level: float, kind: str, progress):
+    Each step is timed; before the next one its time is predicted from the last
+    (in proportion to n, never less than the last step took), and a step that would
+    end past the budget is not started (`_OverBudget`). Progress is reported per
+    simulation against the simulations the search is expected to need: the steps
+    tried, plus those to reach the width where the expected width falls as
+    1 / sqrt(n)."""
+
+    def __init__(self, sim: _Simulation, level: float, kind: str, progress, *,
+                 width: float = 0.0, max_n: int = 1, budget_seconds: float | None = None,
+                 clock: Callable[[], float] | None = None):
+        import time
         self.sim, self.level, self.kind, self.progress = sim, level, kind, progress
+        self.width, self.max_n, self.budget = width, max_n, budget_seconds
+        self.clock = clock or time.monotonic
+        self.t0 = self.clock()
+        self.last: tuple[int, float] | None = None   # (n, seconds) of the last step
         self._tried: dict[int, SampleSizeStep] = {}
+
+    def _steps_ahead(self) -> int:
+        """How many more steps the search is expected to take."""
+        if not self._tried:
+            return 2 * max(1, math.ceil(math.log2(max(self.max_n, 2))))
+        last = max(self._tried.values(), key=lambda t: t.n)
+        if last.width <= self.width or self.width <= 0:
+            return max(1, math.ceil(math.log2(max(last.n, 2))))
+        need = min(self.max_n, last.n * (last.width / self.width) ** 2)
+        doublings = max(1, math.ceil(math.log2(max(need / last.n, 1.0))))
+        return doublings + max(1, math.ceil(math.log2(max(need / 2, 2))))
 
     def __call__(self, n: int) -> SampleSizeStep:
         if n not in self._tried:
-            ws = self.sim.widths(n, self.level, self.kind)
+            elapsed = self.clock() - self.t0
+            if self.budget is not None and self.last is not None:
+                ln, lt = self.last
+                predicted = lt * max(1.0, n / ln)
+                if elapsed + predicted > self.budget:
+                    raise _OverBudget(n, predicted, elapsed, self.budget)
             sims = self.sim.sims
+            done_before = sims * len(self._tried)
+            total = sims * (len(self._tried) + 1 + self._steps_ahead())
+
+            def tick(k: int) -> None:
+                if self.progress is not None:
+                    self.progress(done_before + k, total)
+
+            t = self.clock()
+            ws = self.sim.widths(n, self.level, self.kind, tick=tick)
+            self.last = (n, self.clock() - t)
             err = float(np.std(ws, ddof=1) / math.sqrt(sims)) if sims > 1 else 0.0
             self._tried[n] = SampleSizeStep(n, float(np.mean(ws)), err)
-            if self.progress is not None:
-                self.progress(len(self._tried), 0)
         return self._tried[n]
 
     def steps(self) -> tuple[SampleSizeStep, ...]:

@@ -282,6 +282,8 @@ class Progress:
         elapsed = p.clock() - self.t0
         if elapsed < self.DELAY or (elapsed - self.last < self.EVERY and done < total):
             return
+        if p.busy is not None:
+            p.busy.finish()   # the bar replaces a waiting line
         self.drawn = True
         self.last = elapsed
         p.out.write("\r" + bar(done, total, elapsed, p.width - 1))

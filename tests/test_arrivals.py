@@ -289,3 +289,33 @@ def test_a_let_keeps_the_posterior_unless_the_density_reads_it():
     w2.compute()
     w2.let("q", "p * 0.5")
     assert w2.status().posterior == "out of date"
+
+
+def _normal_mean_workspace() -> Workspace:
+    w = Workspace()
+    w.param("mu", "real")
+    w.prior("mu", "normal(0, 10)")
+    w.data_typed("y", ["1.2", "0.4", "2.2", "1.7"])
+    w.likelihood("y", "normal(mu, 2)")
+    w.compute()
+    return w
+
+
+def test_samplesize_reports_progress_per_simulation_against_a_total():
+    w = _normal_mean_workspace()
+    calls = []
+    res = w.samplesize("mu", 1.0, sims=20, progress=lambda d, t: calls.append((d, t))).detail.search
+    assert res.n is not None
+    # one report a simulation of every n tried, counting up, never past its total
+    assert len(calls) == 20 * len(res.steps)
+    assert all(b[0] > a[0] for a, b in zip(calls, calls[1:]))
+    assert all(0 <= d < t for d, t in calls)
+
+
+def test_samplesize_stops_at_the_time_budget_and_keeps_the_steps_so_far():
+    w = _normal_mean_workspace()
+    w.budget_seconds = 1e-6     # the first step always runs; the next cannot fit
+    res = w.samplesize("mu", 0.01, sims=20).detail.search
+    assert res.n is None and res.stopped
+    assert len(res.steps) == 1 and res.steps[0].n == 1
+    assert "past the time budget" in res.message and "budget SECONDS" in res.message

@@ -19,7 +19,7 @@ from ..layout import Table
 from ..registry import NOTHING, Slot, command
 from ..replies import Asked, Reply, Shown
 from ..words import Line, Segment, ShellError, Word, formula_at, fraction, number, whole
-from .common import say
+from .common import say, with_progress
 from .model import _TILDE, split_at
 from .questions import answer_lines, checkable, question
 
@@ -224,9 +224,10 @@ def ask_samplesize(app, line: Line) -> Asked:
     ws = app.ws
     o = parse_samplesize(line, ws.model.param_names)
     if o.using_at is not None:
-        a = formula_at(o.using_at, ws.samplesize, o.name, o.width, o.options)
+        a = formula_at(o.using_at, with_progress, app, ws.samplesize, o.name, o.width,
+                       o.options)
     else:
-        a = ws.samplesize(o.name, o.width, o.options)
+        a = with_progress(app, ws.samplesize, o.name, o.width, o.options)
     d = a.detail
     res, n = d.search, d.n
     lines = []
@@ -255,6 +256,10 @@ def ask_samplesize(app, line: Line) -> Asked:
     # not reached: the check states n as -1 (none) and the width where the search
     # stopped; the tolerance 0.5 holds n exactly (the width is fixed by the seed)
     tol = R.check_tol(a.values, (None, None)) if n is not None else 0.5
+    if res.stopped:
+        # where the budget stops the search depends on the machine's speed: no check
+        lines.append("note: a search stopped by the time budget is not saved with a check")
+        return Asked(a, tuple(lines), None)
     return Asked(a, tuple(lines), Shown(line.text, a.values, tol))
 
 
