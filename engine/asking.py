@@ -129,8 +129,10 @@ def interval(s: State, name: str, level: float = 0.95, kind: str = "central", *,
             raise ComputeError("a predicted observation has central intervals only")
         got, pv = _predictive(s, pr, budget_seconds)
         a = (1 - level) / 2
+        lo = _pq(pv, a)
+        hi = _pq(pv, 1 - a)
         return _answer(got, "interval", f"{level:g} central interval of new {name}",
-                       Range(pv.quantile(a), pv.quantile(1 - a), None, None, level, kind,
+                       Range(lo.value, hi.value, lo.error, hi.error, level, kind,
                              predictive=pv))
     if name not in s.model.param_names:
         framing.refuse(s, "an interval of a let or an expression")
@@ -231,8 +233,10 @@ def prob(s: State, text: str, *, budget_seconds: float) -> Outcome:
     pr = _predicted_in(s, cond)
     if pr is not None:
         got, pv = _predictive(s, pr, budget_seconds)
+        est = pv.estimate(lambda p: _predictive_prob(p, cond, pr.name),
+                          tail=pv.truncation("prob"))
         return _answer(got, "prob", f"P({text.strip()}) for a new {pr.name}",
-                       Number(_predictive_prob(pv, cond, pr.name), predictive=pv))
+                       Number(est.value, est.error, predictive=pv))
     if framing.active(s) is not None:
         parts = _one_parameter(s, cond)
         got = _node_marginals(s, budget_seconds)
@@ -251,9 +255,10 @@ def moment(s: State, kind: str, text: str, *, budget_seconds: float) -> Outcome:
     pr = _predicted_itself(s, e)
     if pr is not None:
         got, pv = _predictive(s, pr, budget_seconds)
-        value = pv.mean if kind == "mean" else pv.sd
+        est = pv.estimate(lambda p: p.mean if kind == "mean" else p.sd,
+                          tail=pv.truncation(kind))
         return _answer(got, kind, f"{kind} of a new {pr.name}",
-                       Number(value, scale=pv.sd, predictive=pv))
+                       Number(est.value, est.error, scale=pv.sd, predictive=pv))
     if framing.active(s) is not None:
         return _frame_moment(s, kind, text, e, budget_seconds)
     got = fresh(s, budget_seconds=budget_seconds)
@@ -349,8 +354,9 @@ def quantile(s: State, text: str, q: float, *, budget_seconds: float) -> Outcome
     pr = _predicted_itself(s, e)
     if pr is not None:
         got, pv = _predictive(s, pr, budget_seconds)
+        est = _pq(pv, q)
         return _answer(got, "quantile", f"{q:g} quantile of a new {pr.name}",
-                       Number(pv.quantile(q), predictive=pv))
+                       Number(est.value, est.error, predictive=pv))
     if framing.active(s) is not None:
         if not (isinstance(e, sp.Symbol) and e.name in s.model.param_names):
             framing.refuse(s, "a quantile of an expression")
@@ -371,8 +377,16 @@ def quantile(s: State, text: str, q: float, *, budget_seconds: float) -> Outcome
 def predict(s: State, pr: Prediction, *, budget_seconds: float) -> Outcome:
     """The posterior predictive of the new observation `pr`."""
     got, pv = _predictive(s, pr, budget_seconds)
+    ests = [pv.estimate(lambda p: p.mean, tail=pv.truncation("mean")),
+            pv.estimate(lambda p: p.sd, tail=pv.truncation("sd")), _pq(pv, 0.025), _pq(pv, 0.975)]
     return _answer(got, "predict", f"new {pr.name} ~ {pr.text}",
-                   Predicted(pv.mean, pv.sd, pv.quantile(0.025), pv.quantile(0.975), pv))
+                   Predicted(*(e.value for e in ests), pv, tuple(e.error for e in ests)))
+
+
+def _pq(pv: Predictive, q: float) -> Estimate:
+    """The q-quantile of a predictive with its error."""
+    v = pv.quantile(q)
+    return pv.estimate(lambda p: p.quantile(q), tail=pv.truncation("quantile", v, q))
 
 
 def samplesize(s: State, name: str, width: float, options: SampleSizeOptions, *,

@@ -25,7 +25,7 @@ from .errors import ComputeError, ModelError
 from .grid import Grid
 from .model import (Likelihood, Model, ParamFunction, ReducedTerm, RowTerm, compile_model,
                     expand_lets, param_function)
-from .posterior import Marginal, Posterior, walk
+from .posterior import Estimate, Marginal, Posterior, combine, walk
 
 #: The predictive mixes over the grid points holding all but this much mass.
 MIX_TAIL = 1e-13
@@ -61,6 +61,55 @@ class Predictive:
     sd: float
     _weights: np.ndarray
     _args: tuple[np.ndarray, ...]
+    #: The same predictive from the nested coarse levels of the grid (level 1, then 2),
+    #: for the error estimates of `estimate`.
+    coarse: tuple["Predictive", ...] = ()
+    #: The posterior mass beyond the grid (which the mixture cannot hold).
+    missing: float = 0.0
+    #: How far the components' means reach from the mixture's mean, and their
+    #: largest sd: what mass beyond the grid, lying past its edges, could move.
+    reach: float = 0.0
+
+    def estimate(self, of: Callable[["Predictive"], float], *, tail: float = 0.0) -> Estimate:
+        """`of(self)` with its error: from the same question on the nested coarse
+        levels (`posterior.combine`), plus `tail`, what the points left out of the
+        mixture (`MIX_TAIL` of the mass) can move the answer by."""
+        v0 = float(of(self))
+        if not math.isfinite(v0):
+            return Estimate(v0, None, "none")
+        vs = []
+        for c in self.coarse:
+            try:
+                vs.append(float(of(c)))
+            except ComputeError:
+                break
+        est = combine(v0, *(vs[:2] + [None] * (2 - len(vs[:2]))))
+        if est.error is None:
+            return Estimate(v0, None, "none")
+        # rounding: relative to the number, or to 1 for a number at 0
+        return Estimate(v0, max(est.error, 4e-16 * max(abs(v0), 1.0)) + tail, est.method)
+
+    def truncation(self, what: str, value: float = math.nan, q: float = math.nan) -> float:
+        """How far the posterior mass beyond the grid (`missing`, placed as far out
+        again as the mixture reaches, twice over as for a fast-falling tail) could
+        move an answer: a probability by that mass, a mean or sd by the mass times
+        the reach, a quantile by the mass over the density there (a whole step of a
+        count where the cdf is within the mass of the level)."""
+        miss = self.missing + MIX_TAIL
+        if what == "prob":
+            return miss
+        if what in ("mean", "sd"):
+            return 2.0 * miss * self.reach if math.isfinite(self.reach) else math.inf
+        if what == "quantile":
+            if self.discrete:
+                c = self.cdf(value)
+                below = self.cdf(value - 1)
+                return 0.0 if (c - q > miss and q - below > miss) else 1.0
+            if len(self.values) > 1:
+                f = float(np.interp(value, self.values, self.density))
+                return miss / f if f > 0 else math.inf
+            return 0.0
+        raise ValueError(what)
 
     def dist(self, sl=slice(None)):
         return fam.get(self.family).scipy(*[a[sl] for a in self._args])
@@ -140,12 +189,13 @@ class _MassPoints:
     weights: np.ndarray
 
 
-def _mixture_points(post: Posterior) -> _MassPoints:
-    """The grid points holding all but `MIX_TAIL` of the mass (at most `MIX_MAX`)."""
+def _mixture_points(post: Posterior, level: int = 0) -> _MassPoints:
+    """The grid points holding all but `MIX_TAIL` of the mass (at most `MIX_MAX`),
+    weighted as on the nested grid `level` (0 the fine one)."""
     thetas: list[list[np.ndarray]] = [[] for _ in post.grid.axes]
     ws = []
-    for b in walk(post):
-        w0 = b.weights[0]
+    for b in walk(post, coarse=level > 0):
+        w0 = b.weights[level]
         keep = w0 > 0
         for k, t in enumerate(b.theta):
             thetas[k].append(t[keep])
@@ -186,7 +236,28 @@ def predictive(post: Posterior, name: str, family: str, args: Sequence[sp.Expr],
     fns = _argument_functions(post, f, args, model)
     mix = _mixture(post, fns, family)
     pred = _untabled(name, f, mix)
+    coarse = []
+    for level in range(1, min(3, len(post.coarse_marginals) + 1)):
+        try:
+            c = _untabled(name, f, _mixture(post, fns, family, level))
+            coarse.append(_with_pmf_table(c) if f.discrete else c)
+        except (ComputeError, ValueError, ZeroDivisionError):
+            break
+    pred = replace(pred, coarse=tuple(coarse), missing=float(post.diagnostics.missing),
+                   reach=_reach(pred, f, mix))
     return _with_pmf_table(pred) if f.discrete else _with_density_mesh(pred)
+
+
+def _reach(pred: Predictive, f: fam.Family, mix: _Mixture) -> float:
+    """The largest distance of a component's mean from the mixture's mean, plus the
+    largest component sd (inf where they do not exist)."""
+    if not (math.isfinite(pred.mean) and math.isfinite(pred.sd)):
+        return math.inf
+    dist = f.scipy(*mix.args)
+    with np.errstate(all="ignore"):
+        means = np.asarray(dist.mean(), float)
+        sds = np.asarray(dist.std(), float)
+    return float(np.max(np.abs(means - pred.mean)) + np.max(sds))
 
 
 def _argument_functions(post: Posterior, f: fam.Family, args: Sequence[sp.Expr],
@@ -218,10 +289,11 @@ class _Mixture:
     args: tuple[np.ndarray, ...]
 
 
-def _mixture(post: Posterior, fns: Sequence[ParamFunction], family: str) -> _Mixture:
+def _mixture(post: Posterior, fns: Sequence[ParamFunction], family: str,
+             level: int = 0) -> _Mixture:
     """The grid points holding all but `MIX_TAIL` of the mass where the arguments are
-    finite."""
-    pts = _mixture_points(post)
+    finite (weighted as on the nested grid `level`)."""
+    pts = _mixture_points(post, level)
     w = pts.weights
     argv = tuple(np.asarray(fn(pts.theta), float) for fn in fns)
     ok = np.ones(len(w), bool)

@@ -41,7 +41,7 @@ class Number:
     ----------
     value : float
     error : float or None
-        Estimated absolute error (None for exact sums over a predictive).
+        Estimated absolute error (None where no estimate exists).
     scale : float or None
         The spread of the quantity asked about (its sd, for `mean` and `sd`), which a
         check's tolerance is measured against.
@@ -109,13 +109,15 @@ class Point:
 @dataclass(frozen=True)
 class Predicted:
     """A new observation's posterior predictive: mean, sd (``nan`` where they do not
-    exist) and central 95% interval, all exact sums over the grid."""
+    exist) and central 95% interval, sums over the grid, each with its estimated
+    error (from the nested coarse levels; None where there are none)."""
 
     mean: float
     sd: float
     lo: float
     hi: float
     predictive: Predictive
+    errs: tuple[float | None, ...] = (None, None, None, None)
 
     @property
     def checked(self) -> tuple[float, ...]:
@@ -123,7 +125,7 @@ class Predicted:
 
     @property
     def errors(self) -> tuple[float | None, ...]:
-        return (None, None, None, None)
+        return self.errs
 
 
 @dataclass(frozen=True)

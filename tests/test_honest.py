@@ -465,3 +465,28 @@ def test_hpd_of_a_derived_quantity_with_two_modes_is_refused_in_one_line(sh):
     out, err = sh.take()
     assert "2 modes" in out + err and "central" in out + err
     assert "internal error" not in out + err
+
+
+# ---------------------------------------------------------------------------
+# predictive answers carry an error, and it covers the truth
+
+
+@pytest.mark.parametrize("nodes", [15, 31, 121])
+def test_predictive_answers_state_errors_that_cover_the_closed_form(sh, nodes):
+    # rate ~ gamma(2, 1), y = 3, 1, 4, 2 ~ poisson(rate): rate | y ~ gamma(12, 5), and a
+    # new count is negative binomial(12, 5/6) (gamma-Poisson conjugacy, common practice;
+    # scipy.stats.nbinom). Coarse hand-set grids make the sums over the grid err.
+    out = run(sh, "digits 12", "param rate positive", "prior rate ~ gamma(2, 1)",
+              "data y = 3, 1, 4, 2", "likelihood y ~ poisson(rate)",
+              f"grid rate 0.2 8 {nodes}", "compute", "predict ynew ~ poisson(rate)",
+              "prob ynew > 4", "mean ynew", "sd ynew")
+    d = st.nbinom(12, 5 / 6)
+    for prefix, truth in (("P(ynew > 4)", d.sf(4)), ("mean ynew", d.mean()),
+                          ("sd ynew", d.std())):
+        line = next(ln for ln in out.splitlines() if ln.startswith(prefix))
+        got = float(line.split(" = ")[1].split("  (")[0])
+        err = float(line.split("(± ")[1].rstrip(")"))
+        # the grid is cut at 8 (mass beyond: gamma(12, 5).sf(8), about 6e-8): the stated
+        # error must hold that too
+        assert abs(got - truth) <= err + 1e-9, (prefix, got, truth, err)
+        assert err < 0.05
