@@ -14,7 +14,7 @@ from dataclasses import replace
 import numpy as np
 import sympy as sp
 
-from . import derived, framemarg, framing, plan, questions, runs
+from . import derived, framemarg, framequant, framing, plan, questions, runs
 from .edits import future_rows
 from .errors import ComputeError
 from .expr import parse
@@ -332,18 +332,22 @@ def _one_parameter(s: State, cond) -> list[framemarg.Comparison]:
     names = {c.name for c in out}
     if len(out) != len(parts) or len(names) != 1 or not names <= set(s.model.param_names):
         framing.refuse(s, "`prob` of a condition other than comparisons of one parameter with "
-                       "numbers")
+                       "numbers", why=framequant.STEP_REFUSAL)
     return out
 
 
 def _frame_moment(s: State, kind: str, text: str, e: sp.Basic, budget_seconds: float
                   ) -> Outcome:
-    """`mean` or `sd` of a parameter on a rule in the frame."""
-    if not (isinstance(e, sp.Symbol) and e.name in s.model.param_names):
-        framing.refuse(s, f"`{kind}` of an expression")
+    """`mean` or `sd` of a parameter, a let or an expression on a rule in the frame
+    (an expression's values at the rule's nodes, engine/framequant.py)."""
     got = fresh(s, budget_seconds=budget_seconds)
     post = got.result.posterior
-    m, sd = post.param_mean(e.name), post.param_sd(e.name)
+    if framing.is_node(post):
+        mo = framequant.moments(post, e, text=text)
+        m, sd = mo.mean, mo.sd
+    else:
+        mo = questions.moments(post, e, text=text.strip())
+        m, sd = mo.mean, mo.sd
     est = m if kind == "mean" else sd
     return _answer(got, kind, f"{kind} of {text.strip()}",
                    Number(est.value, est.error, scale=sd.value))
@@ -359,7 +363,7 @@ def quantile(s: State, text: str, q: float, *, budget_seconds: float) -> Outcome
                        Number(est.value, est.error, predictive=pv))
     if framing.active(s) is not None:
         if not (isinstance(e, sp.Symbol) and e.name in s.model.param_names):
-            framing.refuse(s, "a quantile of an expression")
+            framing.refuse(s, "a quantile of an expression", why=framequant.STEP_REFUSAL)
         got = _node_marginals(s, budget_seconds)
         est = got.result.posterior.marginals[e.name].quantile(q)
         return _answer(got, "quantile", f"{q:g} quantile of {text.strip()}",

@@ -170,6 +170,8 @@ class FrameFit:
     mode_evaluations: int
     met: bool
     stopped: str = ""
+    nodes: NodeSet | None = field(default=None, repr=False)      # the final rule's nodes
+    logf: np.ndarray | None = field(default=None, repr=False)    # the log-density at them
 
 
 @dataclass(frozen=True)
@@ -457,6 +459,8 @@ class _Pass:
     setting: float
     evaluations: int
     stopped: str = ""          # why a raised rule stopped short of its targets
+    nodes: NodeSet | None = None       # kept so that later questions reuse the nodes
+    logf: np.ndarray | None = None
 
 
 def _fit(compiled: Compiled, fixed: dict[str, float], choice: RuleChoice, targets: Targets,
@@ -473,7 +477,7 @@ def _fit(compiled: Compiled, fixed: dict[str, float], choice: RuleChoice, target
     return FrameFit(fixed, ps.frame, st.check, st.modes, st.frame.health.message, st.frame,
                     ps.reduction,
                     ps.label, ps.setting, ps.evaluations, spent, _met(ps.reduction, targets),
-                    "" if _met(ps.reduction, targets) else ps.stopped)
+                    "" if _met(ps.reduction, targets) else ps.stopped, ps.nodes, ps.logf)
 
 
 def _reduce(nodes: NodeSet, cache: _Cache, frame: Frame, target: _Counted) -> RuleReduction:
@@ -489,7 +493,8 @@ def _hermite(target: _Counted, frame: Frame, setting: float | None, targets: Tar
     K = int(setting) if setting is not None else 1
     stopped = ""
     while True:
-        red = _reduce(hermite(d, K), cache, frame, target)
+        nodes = hermite(d, K)
+        red = _reduce(nodes, cache, frame, target)
         if setting is not None or _met(red, targets):
             break
         if cache.evaluations + hermite_points(d, K + 2) - (K + 2) ** d > targets.budget:
@@ -497,7 +502,7 @@ def _hermite(target: _Counted, frame: Frame, setting: float | None, targets: Tar
             break
         K += 2
     return _Pass(red, frame, f"hermite K = {K + 2} against K = {K}", K, cache.evaluations,
-                 stopped)
+                 stopped, nodes, cache(nodes.z))
 
 
 def _sparse(target: _Counted, frame: Frame, setting: float | None, targets: Targets) -> _Pass:
@@ -519,7 +524,8 @@ def _sparse(target: _Counted, frame: Frame, setting: float | None, targets: Targ
     cache = _Cache(frame.log_density(target))
     stopped = ""
     while True:
-        red = _reduce(sparse(d, L), cache, frame, target)
+        nodes = sparse(d, L)
+        red = _reduce(nodes, cache, frame, target)
         spent = first.evaluations + cache.evaluations
         if setting is not None or _met(red, targets):
             break
@@ -532,7 +538,8 @@ def _sparse(target: _Counted, frame: Frame, setting: float | None, targets: Targ
             break
         L += 1
     label = f"sparse level {L} against {L - 1}" if L else "sparse level 0 (no check level)"
-    return _Pass(red, frame, label, L, first.evaluations + cache.evaluations, stopped)
+    return _Pass(red, frame, label, L, first.evaluations + cache.evaluations, stopped, nodes,
+                 cache(nodes.z))
 
 
 def _saturated(d: int, L: int) -> int:
@@ -551,7 +558,8 @@ def _rotated(target: _Counted, frame: Frame, setting: float | None, targets: Tar
                  max_points=max(targets.budget, 1000))
     red = reduce_nodes(ex.nodes, ex.logf, frame=frame, values=target.values,
                        value_names=frame.names)
-    return _Pass(red, frame, f"rotated step {H:g} against {2 * H:g}", H, ex.nodes.points)
+    return _Pass(red, frame, f"rotated step {H:g} against {2 * H:g}", H, ex.nodes.points, "",
+                 ex.nodes, np.asarray(ex.logf, float))
 
 
 def _met(red: RuleReduction, targets: Targets) -> bool:

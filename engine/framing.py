@@ -51,6 +51,7 @@ TROUBLE_GRID_DIMS = 5
 ROTATED_STEPS = (0.5, 0.75, 1.0)
 #: What a posterior on a rule in the frame answers.
 ANSWERED = ("evidence", "mean, sd, quantiles and intervals of a parameter",
+            "mean and sd of lets and expressions",
             "prob of comparisons of one parameter with numbers", "summary", "plot of a "
             "parameter", "compare and keep")
 #: `cost` lists settings of at most this many points.
@@ -334,9 +335,9 @@ def active(s: State) -> RuleChoice | None:
     return None if grid_by_default(s) else RuleChoice("sparse")
 
 
-def refuse(s: State, what: str) -> None:
-    """Refuse a question the frame rule of `s` does not answer yet, naming the rule
-    that does.
+def refuse(s: State, what: str, *, why: str = "") -> None:
+    """Refuse a question the frame rule of `s` does not answer (yet, or for the
+    reason `why`), naming the rule that does.
 
     Raises
     ------
@@ -347,6 +348,8 @@ def refuse(s: State, what: str) -> None:
         return
     where = (f"rule `{choice.name}`" if s.choice is not None or s.current else
              f"the rule in the frame `compute` picks for {continuous(s)} continuous parameters")
+    if why:
+        raise ComputeError(f"{what} is not answered on {where}: {why}; `rule grid` answers it")
     raise ComputeError(f"{what} is not answered on {where} yet (it answers "
                        f"{', '.join(ANSWERED)}): `rule grid` answers it")
 

@@ -49,7 +49,8 @@ def test_quantiles_intervals_and_probabilities_of_an_exactly_normal_posterior():
         assert abs(p2.value - (ref.cdf(cut) - 0.5)) <= 1e-7
     with pytest.raises(QuadratError, match=r"`prob` of a condition other than comparisons of "
                                            r"one parameter with numbers is not answered on "
-                                           r"rule `sparse` yet"):
+                                           r"rule `sparse`: its value comes from a step "
+                                           r"function of the parameters"):
         ws.prob("b1 * b2 > 0")
 
 
