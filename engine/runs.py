@@ -15,7 +15,7 @@ from typing import Callable
 
 import numpy as np
 
-from . import framerun, framing, plan
+from . import frameappend, framerun, framing, plan
 from .data import DataSet
 from .edits import data_notes
 from .errors import ComputeError, GridError, QuadratError
@@ -459,7 +459,9 @@ def append(s: State, data: DataSet, message: str, *, budget_seconds: float,
     that keeps its density is updated from the new rows alone, and re-sized when
     the mass moves toward an edge of its grid. A `Change`."""
     post = s.posterior
-    if not s.current or framing.is_node(post) or post.logp is None:
+    if s.current and framing.is_node(post):
+        return frameappend.append(s, data, message, targets=framing._budget(post.choice))
+    if not s.current or post.logp is None:
         return Outcome(replace(s, data=data), Change(message, data_notes(s.model, data)))
     try:
         old_rows = {part.key: part.rows for part in s.compiled().likelihood}

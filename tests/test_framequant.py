@@ -154,3 +154,26 @@ def test_quantiles_and_probabilities_over_several_parameters_are_refused_with_th
         ws.mean("log(b1 - 100)")
     # the posterior is still there and current
     assert ws.status().posterior == "current"
+
+
+def test_keep_and_compare_two_regressions_on_rules_in_the_frame(tmp_path):
+    # 4 coefficients and an unknown sd against the same model without x3 (5 and 4
+    # parameters, each on the rule `compute` picks): the log Bayes factor against the
+    # difference of tests/reference_regression.py's exact log evidences
+    from dataclasses import replace as _replace
+    from reference_regression import exact_reference
+    case = invented_case(4)
+    smaller = _replace(case, X=case.X[:, :3])
+    sh = _regression_session(tmp_path, case)
+    sh("keep full")
+    # without x3: b3's proper prior then integrates to 1, so the evidence is the smaller
+    # model's
+    sh("likelihood y ~ normal(b0 + b1 * x1 + b2 * x2, s)")
+    sh("keep small")
+    out = sh("compare full small")
+    c = sh.app.ws.compare("full", "small")
+    ref = exact_reference(case).log_evidence - exact_reference(smaller).log_evidence
+    assert abs(c.log_bf.value - ref) <= 1e-4 * abs(exact_reference(case).log_evidence)
+    assert c.log_bf.error is not None and abs(c.log_bf.value - ref) <= max(2 * c.log_bf.error,
+                                                                          1e-9)
+    assert "full" in out and "small" in out
