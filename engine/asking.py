@@ -14,7 +14,7 @@ from dataclasses import replace
 import numpy as np
 import sympy as sp
 
-from . import derived, framemarg, framequant, framing, plan, questions, runs
+from . import derived, framemarg, framepredict, framequant, framing, plan, questions, runs
 from .edits import future_rows
 from .errors import ComputeError
 from .expr import parse
@@ -60,10 +60,17 @@ def _predictive(s: State, pr: Prediction, budget_seconds: float
     """The fresh posterior's outcome, and the predictive of `pr` under it: made once
     per prediction and posterior (kept on the memo, keyed on the posterior's basis of
     revisions), then shared by every question on it."""
-    framing.refuse(s, "a prediction")
     got = fresh(s, budget_seconds=budget_seconds)
     post = got.result.posterior
     st = got.state
+    if framing.is_node(post):
+        # a mixture over the rule's nodes, checked against its next coarser level
+        pv, notes = st.memo.predictive(
+            (st.basis, pr, "nodes"),
+            lambda: framepredict.predictive(post, pr.name, pr.family, pr.args, st.model))
+        if notes:
+            got = Outcome(st, replace(got.result, notes=tuple(got.result.notes) + notes))
+        return got, pv
     return got, st.memo.predictive(
         (st.basis, pr), lambda: predictive(post, pr.name, pr.family, pr.args, st.model))
 

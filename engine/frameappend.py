@@ -61,8 +61,7 @@ def append(s: State, data: DataSet, message: str, *, targets: Targets) -> Outcom
             break
         fits.append(fit)
     if why:
-        new = framerun.compute(full, post.choice, targets=targets,
-                               probe=framerun.probes_of(post) if not _moved(why) else None)
+        new = framerun.compute(full, post.choice, targets=targets)     # a new mode search
         notes = (f"re-framed: {why}; rule {new.label}: {format_count(new.points)} evaluations",)
     else:
         new = framerun._combined(full, post.choice, tuple(fits), time.perf_counter() - t0)
@@ -96,11 +95,6 @@ def _worse(new, old) -> bool:
     if new.error is None or not math.isfinite(new.error):
         return True
     return old.error is not None and new.error > 2 * old.error + 1e-12
-
-
-def _moved(why: str) -> bool:
-    """Whether the reason to re-frame means the old mode search is of no use."""
-    return "moved" in why or "spread" in why
 
 
 def _updated(full: Compiled, inc: Compiled, f: FrameFit, targets: Targets, *, raised: bool
