@@ -18,6 +18,7 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 
 from .errors import DataError, FormulaError
+from .characters import quoted
 from .expr import check_name
 from .files import MAX_DATA_BYTES, decode_text, read_bytes
 from .revision import next_revision
@@ -189,19 +190,19 @@ def parse_number(text: str, where: str) -> float:
         raise DataError(f"{where}: missing value")
     low = t.lower().lstrip("+-")
     if low in ("nan", "inf", "infinity"):
-        raise DataError(f"{where}: `{t}` is not a finite number")
+        raise DataError(f"{where}: `{quoted(t)}` is not a finite number")
     try:
         if not _NUMBER.fullmatch(t):
             raise ValueError
         v = float(t)
     except ValueError:
-        shown = t if len(t) <= 30 else t[:27] + "..."
-        raise DataError(f"{where}: `{shown}` is not a number") from None
+        raise DataError(f"{where}: `{quoted(t, 30)}` is not a number") from None
     if not math.isfinite(v):
-        raise DataError(f"{where}: `{t}` is out of range")
+        raise DataError(f"{where}: `{quoted(t)}` is out of range")
     if v == 0 and any(c in "123456789" for c in low.split("e")[0]):
         # a nonzero value below double precision would silently become 0
-        raise DataError(f"{where}: `{t}` is too small (it rounds to 0 in double precision)")
+        raise DataError(f"{where}: `{quoted(t)}` is too small (it rounds to 0 in double "
+                        "precision)")
     return check_value(v, where)
 
 
@@ -338,12 +339,22 @@ def _csv_rows(text: str, name: str) -> list[_CsvRow]:
     return numbered
 
 
+#: What a header cell must look like before it is shown in a message: a word (letters
+#: of any script, digits, _); the rules for names then apply, the name quoted short.
+_NAME_LIKE = re.compile(r"[^\W\d]\w*")
+
+
 def _header(row: _CsvRow, name: str) -> list[str]:
     """Column names: each a valid name, none twice."""
     header = [h.strip() for h in row.cells]
     for j, h in enumerate(header):
         if not h:
             raise DataError(f"file `{name}` row {row.line}, column {j + 1}: empty column name")
+        if not _NAME_LIKE.fullmatch(h):
+            # the file's own text is not echoed: it may be anything (a password file)
+            raise DataError(f"file `{name}` row {row.line}, column {j + 1}: not a CSV file "
+                            "with a header of names (a column name starts with a letter and "
+                            "uses only letters, digits and _)")
         try:
             check_name(h, "column name")
         except FormulaError as exc:

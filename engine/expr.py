@@ -15,6 +15,7 @@ import keyword
 import math
 import re
 import sys
+import unicodedata
 import warnings
 from dataclasses import dataclass
 from typing import Callable, Mapping
@@ -25,6 +26,7 @@ import sympy as sp
 
 from . import logspace as L
 from . import special as S
+from .characters import char_name, code, invisible, name_problem, quoted
 from .errors import FormulaError
 
 MAX_LENGTH = 10_000
@@ -169,15 +171,27 @@ def check_name(name: str, what: str = "name") -> str:
         If the name is not a plain identifier, starts with an underscore or is
         reserved (a function, a constant or a word of the command language).
     """
+    problem = name_problem(name, what)
+    if problem is not None:
+        raise FormulaError(problem)
     if not _NAME.match(name):
-        shown = name if len(name) <= 40 else name[:37] + "..."
-        raise FormulaError(
-            f"{what} `{shown}` must start with a letter and use only letters, digits and _")
+        raise FormulaError(f"{what} `{quoted(name)}` must start with a letter and use only "
+                           "letters, digits and _")
     if name in RESERVED:
         raise FormulaError(f"{what} `{name}` is a reserved word of quadrat; choose another")
     if len(name) > 64:
         raise FormulaError(f"{what} `{name[:20]}...` is longer than 64 characters")
     return name
+
+
+def _odd_character(ch: str) -> str:
+    """Why a character outside printable ASCII cannot be in a formula, naming it."""
+    shown = code(ch) if invisible(ch) or ord(ch) < 32 or ord(ch) == 127 else ch
+    about = char_name(ch) if shown == code(ch) else f"U+{ord(ch):04X} {char_name(ch)}"
+    normal = unicodedata.normalize("NFKC", ch)
+    like = f" (it looks like `{normal}`)" if normal != ch and normal.isascii() \
+        and normal.isprintable() else ""
+    return f"character `{shown}` ({about}) is not allowed; formulas are plain ASCII{like}"
 
 
 def _check_text(text: str) -> str:
@@ -186,7 +200,7 @@ def _check_text(text: str) -> str:
     depth = 0
     for i, ch in enumerate(text):
         if ord(ch) > 126 or (ord(ch) < 32 and ch not in "\t"):
-            raise FormulaError(f"character {ch!r} is not allowed", i + 1)
+            raise FormulaError(_odd_character(ch), i + 1)
         if ch in "([{":
             depth += 1
             if depth > MAX_DEPTH:

@@ -16,6 +16,7 @@ import sys
 import traceback
 from dataclasses import dataclass
 
+from engine.characters import quoted
 from engine.errors import QuadratError
 from engine.state import State
 from engine.workspace import Workspace
@@ -117,14 +118,18 @@ class App:
         ``checked`` (a check held), ``failed`` (a check did not hold) or
         ``cancelled``. Raises `Quit`."""
         line = Line.of(source)
+        mark = Mark(self.ws.state, self.ws.in_whatif, len(self.log), f"{where}: " if where else "")
+        try:
+            check_characters(line)      # the whole line: a comment is shown by `cat` too
+        except ShellError as exc:
+            self.printer.error(f"{mark.prefix}error: {exc}")
+            return "error"
         if line.blank:
             return "blank"
-        mark = Mark(self.ws.state, self.ws.in_whatif, len(self.log), f"{where}: " if where else "")
         self.printer.written = 0      # a picture leaves room for what this line prints
         self.depth += 1
         outer_where, self.current_where = self.current_where, where
         try:
-            check_characters(line)
             cmd = self.lookup(line)
             waits = cmd.kind == "question" or cmd.name == "plot"
             with R.showing(self.digits), self.printer.waiting(line.text, active=waits):
@@ -182,7 +187,8 @@ class App:
             return cmd
         if name in LATER:
             raise ShellError(f"`{name}` is not in this version of quadrat yet", 1 + line.start)
-        raise ShellError(f"unknown command `{name}`; `help` lists the commands", 1 + line.start)
+        raise ShellError(f"unknown command `{quoted(name)}`; `help` lists the commands",
+                         1 + line.start)
 
     def restore(self, before: State, layer_before: bool | None = None) -> None:
         """Put the workspace back to state `before` (going back through its history),

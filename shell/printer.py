@@ -13,8 +13,9 @@ import shutil
 import sys
 import threading
 import time
-import unicodedata
 from typing import Callable, Iterable, TextIO
+
+from engine.characters import escaped, terminal_safe
 
 from .layout import Table, wrap
 
@@ -23,18 +24,10 @@ _STYLES = {"error": "\x1b[31m", "warning": "\x1b[33m", "note": "\x1b[2m", "ok": 
 _RESET = "\x1b[0m"
 
 
-def hidden(ch: str) -> bool:
-    """A control or format character (escape sequences, bidi overrides, byte-order
-    marks): text from a file or a line must never carry one to the terminal."""
-    return ch != "\t" and unicodedata.category(ch) in ("Cc", "Cf", "Zl", "Zp")
-
-
 def visible(text: str) -> str:
-    """`text` with every hidden character written as an escape (``\\x1b``)."""
-    if not any(hidden(ch) for ch in text):
-        return text
-    return "".join(ch.encode("unicode_escape").decode("ascii") if hidden(ch) else ch
-                   for ch in text)
+    """`text` with every control or format character written as an escape (``\\x1b``,
+    ``<U+202E>``): text from a file or a line must never carry one to the terminal."""
+    return terminal_safe(text)
 
 
 def is_terminal(stream: TextIO) -> bool:
@@ -194,7 +187,8 @@ class Printer:
 
     def error(self, text: str) -> None:
         self._settle()
-        for piece in self._fitted(visible(text)):
+        # an error quotes what was typed or read: fillers and odd spaces are shown too
+        for piece in self._fitted(escaped(text.replace("\t", " "))):
             self.err.write(self._paint(piece, "error") + "\n")
             if self.err is self.out:
                 self.written += 1

@@ -15,12 +15,13 @@ import os
 import re
 from dataclasses import dataclass
 
+from engine.characters import file_name_problem
 from engine.errors import FileError
 from engine.files import (MAX_SESSION_BYTES, Target, atomic_write, first_line, read_text,
                           sha256_of, write_target)
 
 from . import __version__
-from .words import Line, ShellError, split_lines
+from .words import Line, ShellError, check_characters, split_lines
 
 #: The first line of every file `save` writes starts with this.
 HEADER = "# quadrat session"
@@ -175,7 +176,16 @@ def read_session(path: str, shown: str | None = None) -> list[str]:
     """The lines of session file `path` (named `shown` in messages)."""
     shown = shown or path
     text, _ = read_text(path, shown=shown, what="session file", limit=MAX_SESSION_BYTES)
-    return split_lines(text)
+    lines = split_lines(text)
+    for i, source in enumerate(lines, 1):
+        # comments included, before anything runs: a file whose text `cat` would show
+        # otherwise than it reads is refused whole
+        try:
+            check_characters(Line.of(source))
+        except ShellError as exc:
+            raise ShellError(f"file `{shown}` line {i}, column {exc.column}: {exc.reason}; "
+                             "nothing was replayed") from None
+    return lines
 
 
 def data_checks(lines: list[str], shown: str = "the session file") -> list[DataCheck]:
@@ -192,6 +202,9 @@ def data_checks(lines: list[str], shown: str = "the session file") -> list[DataC
             break
         m = _DATA.match(s)
         if m is not None:
+            problem = file_name_problem(m.group("path"))
+            if problem is not None:
+                raise ShellError(f"`{shown}` line {i}: {problem}; nothing was replayed")
             out.append(DataCheck(m.group("path"), m.group("sha").lower(), i))
         elif _DATA_LIKE.match(s):
             raise ShellError(f"`{shown}` line {i}: a data checksum line reads `# data PATH "

@@ -13,6 +13,7 @@ import math
 import re
 from dataclasses import dataclass
 
+from engine.characters import file_name_problem, line_flaw, line_message
 from engine.errors import FormulaError, QuadratError
 
 
@@ -127,14 +128,12 @@ class Line:
 
 
 def check_characters(line: Line) -> None:
-    """Refuse a control or format character in a command (an escape sequence, a
-    bidi override, a NUL byte): it could rewrite the terminal when echoed."""
-    from .printer import hidden, visible
-
-    for i in range(line.start, line.end):
-        ch = line.source[i]
-        if hidden(ch):
-            raise ShellError(f"character `{visible(ch)}` is not allowed in a command", i + 1)
+    """Refuse a control or format character anywhere in the line, its comment
+    included (an escape sequence, a bidi override, a NUL byte): echoed, or shown
+    by `cat` of a session file, it could rewrite or hide what the line says."""
+    flaw = line_flaw(line.source, (line.start, line.end))
+    if flaw is not None:
+        raise ShellError(line_message(flaw), flaw.index + 1)
 
 
 def split_lines(text: str) -> list[str]:
@@ -227,10 +226,14 @@ def whole(word: Word, what: str, *, low: int | None = None) -> int:
 
 
 def path_word(word: Word) -> str:
-    """A file name, with surrounding double quotes taken off."""
+    """A file name, with surrounding double quotes taken off; one holding an
+    invisible character (which could pass for another name) is refused."""
     t = word.text
     if len(t) >= 2 and t[0] == t[-1] == '"':
-        return t[1:-1]
+        t = t[1:-1]
+    problem = file_name_problem(t)
+    if problem is not None:
+        raise ShellError(problem, word.column)
     return t
 
 

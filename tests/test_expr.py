@@ -272,7 +272,10 @@ def test_bare_conditions_are_refused_in_formulas(text, pattern):
     ("True + x", r"`True` is not a number at column 1"),
     ("None", r"`None` is not a number at column 1"),
     ("1j * x", r"complex number `1j` is not allowed at column 1"),
-    ("x\u00b2", r"character '\u00b2' is not allowed at column 2"),
+    ("x\u00b2", r"character `\u00b2` \(U\+00B2 superscript two\) is not allowed; formulas are "
+               r"plain ASCII \(it looks like `2`\) at column 2"),
+    ("x\u3164", r"character `U\+3164` \(hangul filler\) is not allowed; formulas are plain "
+               r"ASCII at column 2"),
     # names and calls
     ("z + 1", r"unknown name `z` at column 1"),
     ("x + _y", r"name `_y` is not allowed \(names cannot start with _\) at column 5"),

@@ -178,12 +178,16 @@ class Probe:
 
 
 def prepare_folder(folder: str) -> None:
-    """The files a probe's folder holds: a CSV file; two pipes (FIFOs, which git cannot
+    """The files a probe's folder holds: a CSV file and its look-alike; two pipes (FIFOs, which git cannot
     hold: `pipe.fifo` named by a checksum line, `pipe.qd` as the target of `save`); a
     session file `target.qd` with a symbolic link `link.qd` to it, and a link
     `dangling.qd` to nothing."""
     with open(os.path.join(folder, "d.csv"), "w", encoding="utf-8") as fh:
         fh.write(CSV)
+    # the same name with an invisible Hangul filler after the `d`: another file, which
+    # looks like `d.csv` on the screen (git would carry the odd name badly)
+    with open(os.path.join(folder, "d\u3164.csv"), "w", encoding="utf-8") as fh:
+        fh.write("n,z\n99,99\n")
     for name in ("pipe.fifo", "pipe.qd"):
         os.mkfifo(os.path.join(folder, name))
     with open(os.path.join(folder, "target.qd"), "w", encoding="utf-8") as fh:
