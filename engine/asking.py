@@ -314,7 +314,8 @@ def _node_summary(s: State, budget_seconds: float) -> Outcome:
     rows = tuple(SummaryRow(n, post.param_mean(n), post.param_sd(n),
                             *(post.marginals[n].quantile(q) for q in (0.025, 0.5, 0.975)))
                  for n in post.names)
-    return Outcome(got.state, Summary(rows, post.log_evidence, post.points, got.result.notes))
+    return Outcome(got.state, Summary(rows, post.log_evidence, post.points, got.result.notes,
+                                      rule=post.choice.describe()))
 
 
 _SIDES = {sp.StrictLessThan: "<", sp.LessThan: "<=", sp.StrictGreaterThan: ">",

@@ -270,6 +270,7 @@ class Summary:
     notes: tuple[str, ...] = ()
     now: "Summary | None" = None
     unresolved: str = ""
+    rule: str = ""          # a rule in the frame (its points are nodes), or "" for a grid
 
 
 # ---------------------------------------------------------------------------

@@ -99,6 +99,8 @@ def test_summary_plot_save_and_replay_on_a_frame_rule(tmp_path):
     row = re.search(r"^b1\s.*\s(\S+) to (\S+)$", out, re.M)
     # the 97.5% quantile of b1: scipy.stats.norm (conjugacy, module docstring)
     assert abs(float(row.group(2)) - st.norm(m[1], sd[1]).ppf(0.975)) <= 1e-5 * abs(m[1])
+    # the count is of the rule's nodes, not of grid points
+    assert re.search(r"^[\d,]+ nodes of rule `hermite", out, re.M) and "grid points" not in out
     out = sh("plot b1")
     assert "b1" in out and "interval" in out
     sh("export m.json")

@@ -367,7 +367,8 @@ def summary(app, line: Line):
                                                 unresolved=bool(s.unresolved)))
     else:
         p.line("log evidence: not defined (the prior is improper)")
-    tail = f"{R.count(s.points)} grid points"
+    tail = (f"{R.count(s.points)} nodes of rule `{s.rule}`" if s.rule
+            else f"{R.count(s.points)} grid points")
     if s.unresolved:
         tail += "; not resolved: " + s.unresolved + " (use `grid auto` or `zoom`)"
     elif errs and max(errs) > 0:
