@@ -60,6 +60,11 @@ class NodeMarginal:
         v = float(f(self.fine))
         others = [float(f(m)) for m in self.checks]
         err = max((abs(v - o) for o in others), default=None)
+        if err is not None:
+            # levels that agree to the last digit still carry the solver's tolerance
+            # (1e-14 of the scale): an error of 0 is for exact sums only
+            sd = self.fine.sd if math.isfinite(self.fine.sd) else 0.0
+            err = max(err, 1e-14 * max(abs(v), sd, 1e-300))
         return Estimate(v, err, "levels")
 
     def quantile(self, q: float) -> Estimate:

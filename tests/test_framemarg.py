@@ -114,3 +114,16 @@ def test_summary_plot_save_and_replay_on_a_frame_rule(tmp_path):
     again.app.ws.base_dir = str(tmp_path)
     out = again("replay s.qd")
     assert re.search(r"replayed `s.qd`: all \d+ checks held\n$", out), out
+
+
+def test_a_quantile_on_a_frame_rule_is_never_called_exact(tmp_path):
+    # four independent standard normal priors, no data: every median is 0 (symmetry,
+    # common practice); the levels agree to the last digit, which is not exactness
+    sh = _Sh(tmp_path)
+    for n in "abcd":
+        sh(f"param {n} real", f"prior {n} ~ normal(0, 1)")
+    sh("rule sparse", "compute")
+    for n in "abcd":
+        out = sh(f"quantile {n} 0.5")
+        assert "exact" not in out
+        assert abs(float(out.split(" = ")[1].split()[0])) < 1e-13
