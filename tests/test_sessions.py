@@ -80,6 +80,49 @@ def test_the_joint_plot_fits_the_width(runs):
     assert max(len(line) for line in out.splitlines()) <= 100
 
 
+def _growth_reference():
+    """Log evidence, mean of `s` and the coefficients' means for sessions/growth.qd: given
+    s the coefficients integrate out in closed form (y ~ N(X m0, X S0 X' + s^2 I), the
+    normal-normal conjugacy, common practice; scipy.stats.multivariate_normal), then s
+    by 1-D quadrature (scipy.integrate.simpson) under its half-normal(3) prior."""
+    from scipy import integrate
+    text = (ROOT / "sessions" / "growth.qd").read_text()
+
+    def col(name):
+        line = re.search(rf"^data {name} = (.*)$", text, re.M).group(1)
+        return np.array([float(v) for v in line.split(",")])
+
+    t, p, c, h, y = (col(n) for n in ("temp", "press", "cat", "hours", "growth"))
+    X = np.column_stack([np.ones_like(t), t - 170, p - 4, c - 1.25, h - 2.5])
+    m0, sd0 = np.array([12, 0, 0, 0, 0.0]), np.array([5, 1, 2, 4, 2.0])
+    ss = np.linspace(0.4, 2.0, 801)     # the posterior of s is negligible outside
+    lm = np.array([st.multivariate_normal(X @ m0, X @ np.diag(sd0 ** 2) @ X.T
+                                          + s * s * np.eye(len(y))).logpdf(y) for s in ss])
+    lm += st.halfnorm(scale=3).logpdf(ss)
+    w = np.exp(lm - lm.max())
+    z = integrate.simpson(w, x=ss)
+    w /= z
+
+    def cond_mean(s):
+        prec = np.diag(1 / sd0 ** 2) + X.T @ X / s ** 2
+        return np.linalg.solve(prec, m0 / sd0 ** 2 + X.T @ y / s ** 2)
+
+    means = integrate.simpson(w[:, None] * np.array([cond_mean(s) for s in ss]), x=ss, axis=0)
+    return math.log(z) + lm.max(), integrate.simpson(w * ss, x=ss), means
+
+
+def test_growth_session_past_the_grid_agrees_with_the_closed_form(runs):
+    log_z, mean_s, means = _growth_reference()
+    out = runs["growth.qd"].stdout
+    assert "rule: sparse" in out
+    ev, ev_err = re.search(r"^log evidence = (\S+)  \(± (\S+)\)", out, re.M).groups()
+    assert abs(float(ev) - log_z) <= float(ev_err)
+    for name, ref in zip(("b0", "bt", "bp", "bc", "bh", "s"), list(means) + [mean_s]):
+        m, err = re.search(rf"^{name}\s+(\S+)\s+± (\S+)\s", out, re.M).groups()
+        # within the stated error, or the shown rounding of a value printed to 6 digits
+        assert abs(float(m) - ref) <= float(err) + 5e-6 * abs(ref), (name, m, ref, err)
+
+
 def test_defects_session_agrees_with_the_gamma_poisson_closed_form(runs):
     # counts y_i ~ poisson(rate), rate ~ gamma(2, rate 1): posterior gamma(2 + S, 1 + n);
     # evidence = 1^2 / G(2) * G(2 + S) / (1 + n)^(2 + S) / prod y_i! (gamma-Poisson
