@@ -493,8 +493,7 @@ def sample_size(post: Posterior, model: Model, name: str, width: float, *, level
                           f"{found.last.width:.4g} (it fell by less than {100 * PLATEAU:g}% a "
                           f"doubling of n from {found.first.n:,} to {found.last.n:,} further "
                           "observations); "
-                          f"the uncertainty that further rows of `{future.column}` do not "
-                          "reduce (parameters they do not inform) dominates the width",
+                          + _dominant(model, future, name),
                           sims, seed, unit, True)
     if found is None:
         at = expected(max_n)
@@ -507,6 +506,21 @@ def sample_size(post: Posterior, model: Model, name: str, width: float, *, level
               "simulations would firm up n"
     return SampleSize(found.n, found.width, found.mc_error, expected.steps(), msg, sims, seed,
                       unit)
+
+
+def _dominant(model: Model, future: FutureRows, name: str) -> str:
+    """Which uncertainty a levelled expected width is left with: the other
+    parameters the future rows read, which those rows inform only together with
+    `name` (so more of them pin the combination, not `name` itself)."""
+    others = sorted({str(x) for a in future.args for x in expand_lets(a, model).free_symbols}
+                    & (set(model.param_names) - {name}))
+    if not others:
+        return (f"the uncertainty that further rows of `{future.column}` do not reduce "
+                "dominates the width")
+    named = ", ".join(f"`{o}`" for o in others)
+    return (f"further rows of `{future.column}` inform `{name}` only together with {named}, "
+            f"so the uncertainty of {named} (from the prior and the data so far) dominates "
+            "the width")
 
 
 def _samplesize_iv(post: Posterior, width: float, level: float, max_n) -> int:

@@ -348,7 +348,8 @@ def test_samplesize_says_a_levelled_width_cannot_be_reached(sh):
               "grid prev 0.0005 0.4 41", "grid se 0.6 0.99 21", "grid sp 0.85 0.999 21",
               "compute", "samplesize prev width 0.01 sims 20 max 4096", "save ss.qd")
     assert "cannot be reached: the expected width levels off near" in out
-    assert "parameters they do not inform" in out
+    assert ("inform `prev` only together with `se`, `sp`, so the uncertainty of `se`, `sp`"
+            in out)
     assert "one further observation is one row of `k` ~ binomial(100" in out
     text = open(os.path.join(sh.app.ws.base_dir, "ss.qd")).read()
     assert "check samplesize prev width 0.01 sims 20 max 4096 = -1, " in text

@@ -292,9 +292,12 @@ question("samplesize", SAMPLESIZE_USAGE, ask=ask_samplesize, complete=_complete_
     highest-density intervals instead of central ones. One further observation is one
     row of that likelihood (a row of `k ~ binomial(100, p)` is a batch of 100 trials);
     the answer says so. When the expected width levels off above W (the uncertainty of
-    parameters the new rows do not inform dominates), it says that W cannot be reached
-    instead of searching on. More `sims N` lower the Monte Carlo error at the cost of
-    time. Inside a what-if layer it answers for the what-if state.""")
+    other parameters the new rows inform only together with NAME dominates), it says that
+    W cannot be reached, and which parameters, instead of searching on. More `sims N`
+    lower the Monte Carlo error at the cost of time. A progress bar shows the simulations
+    done; a step that would end past the time budget (`budget`) is not started, and the
+    answer keeps the steps so far. Inside a what-if layer it answers for the what-if
+    state.""")
 
 
 # ---------------------------------------------------------------------------
